@@ -1,0 +1,749 @@
+//! Archive: the schema of cyclarc's archive file, its version rules, and writing and reading it.
+//!
+//! An archive is one Parquet file (zstd) with one row per segment:
+//!
+//! | column | type | meaning |
+//! |---|---|---|
+//! | `channel` | utf8 | channel name |
+//! | `start` | timestamp(ns, UTC) | time of the segment's first sample |
+//! | `samples` | int32 | number of samples (source rows) in the segment |
+//! | `basis` | utf8 | `fourier`, `samples` or `lossless` |
+//! | `order` | int32, null | truncation order L (bins 0 … L−1; bin k at k·fs/samples Hz); null unless `fourier` |
+//! | `cycles` | int32, null | whole cycles K in the segment; null when not periodic |
+//! | `budget_rms` | float32 | resolved RMS budget, channel units |
+//! | `error_rms` | float32 | RMS error of the decoded output against the source (finite values), rounded up |
+//! | `sample_rate_hz` | float32 | sample rate |
+//! | `fundamental_hz` | float32, null | fundamental used for the segment |
+//! | `rms` | float32 | RMS of the source's finite values |
+//! | `h1_amp` … `h3_amp` | float32, null | peak amplitude of harmonics 1–3 (channel units) |
+//! | `h1_phase` … `h3_phase` | float32, null | their cosine phase at `start` (radians) |
+//! | `thd` | float32, null | THD of harmonics 2–50 over the fundamental (IEEE 519), from the stored coefficients |
+//! | `block` | int32 | block number; a block is consecutive segments of one channel run |
+//! | `payload` | binary, null | the block's zstd frame, on the block's first row only |
+//! | `checksum` | uint32, null | CRC-32 of `payload`, on the block's first row only |
+//!
+//! Derived columns (`rms`, harmonics, `thd`) keep 16 significant bits. File metadata holds
+//! `cyclarc.format` (`MAJOR.MINOR`, now [`FORMAT_VERSION`]) and `cyclarc.meta` (JSON: writer
+//! version, source name, size and SHA-256, resolved settings, source schema, channels).
+//! A reader refuses a newer major version; a newer minor version only adds columns or fields.
+//! Beside the archive, `NAME.sha256` records the SHA-256 of the whole archive file.
+//!
+//! Outputs are written to a temporary name in the same folder, fsynced, renamed, and the
+//! folder fsynced; a failure leaves nothing under the final name.
+
+use std::fs::File;
+use std::io::{Read, Write};
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use arrow::array::{
+    Array, ArrayRef, AsArray, BinaryArray, Float32Array, Int32Array, RecordBatch, StringArray,
+    TimestampNanosecondArray, UInt32Array,
+};
+use arrow::datatypes::{
+    DataType, Field, Float32Type, Int32Type, Schema, TimeUnit, TimestampNanosecondType, UInt32Type,
+};
+use parquet::arrow::ArrowWriter;
+use parquet::basic::{Compression, Encoding, ZstdLevel};
+use parquet::file::metadata::KeyValue;
+use parquet::file::properties::{EnabledStatistics, WriterProperties};
+use parquet::schema::types::ColumnPath;
+use serde::{Deserialize, Serialize};
+use sha2::{Digest, Sha256};
+
+use crate::error::{Error, Result};
+use crate::fit::Basis;
+use crate::job::{EncodedBlock, DERIVED_HARMONICS};
+use crate::options::Settings;
+use crate::read::{open_parquet, ChannelInfo, SourceSchema, READ_BATCH_ROWS};
+use crate::segment::{FundamentalSource, SegmentPlan};
+use crate::signal::ValueType;
+
+/// Archive format major version.
+pub const FORMAT_MAJOR: u32 = 1;
+/// Archive format minor version.
+pub const FORMAT_MINOR: u32 = 0;
+/// Archive format version as written.
+pub const FORMAT_VERSION: &str = "1.0";
+/// This program's version, recorded as the writer.
+pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
+
+/// Key of the format version in the Parquet file metadata.
+pub const KEY_FORMAT: &str = "cyclarc.format";
+/// Key of the JSON metadata.
+pub const KEY_META: &str = "cyclarc.meta";
+
+/// One archive row (one segment).
+#[derive(Debug, Clone, PartialEq)]
+pub struct SegmentRow {
+    /// Channel name.
+    pub channel: String,
+    /// First sample's time (ns).
+    pub start_ns: i64,
+    /// Samples.
+    pub samples: u32,
+    /// Basis.
+    pub basis: Basis,
+    /// Order (Fourier).
+    pub order: Option<u32>,
+    /// Whole cycles (periodic segments).
+    pub cycles: Option<u32>,
+    /// Budget.
+    pub budget_rms: f32,
+    /// Recorded error (rounded up).
+    pub error_rms: f32,
+    /// Sample rate.
+    pub sample_rate_hz: f32,
+    /// Fundamental.
+    pub fundamental_hz: Option<f32>,
+    /// Source RMS.
+    pub rms: f32,
+    /// (amplitude, phase) of harmonics 1 … [`DERIVED_HARMONICS`].
+    pub harmonics: Vec<Option<(f32, f32)>>,
+    /// THD.
+    pub thd: Option<f32>,
+    /// Block number.
+    pub block: u32,
+    /// Payload (first row of a block).
+    pub payload: Option<Vec<u8>>,
+    /// CRC-32 of the payload (first row of a block).
+    pub checksum: Option<u32>,
+}
+
+/// The source an archive was made from.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SourceMeta {
+    /// File name (no folder).
+    pub name: String,
+    /// Size in bytes.
+    pub bytes: u64,
+    /// SHA-256 of the file, hex.
+    pub sha256: String,
+}
+
+impl SourceMeta {
+    /// Hash a source file.
+    pub fn of(path: &Path) -> Result<SourceMeta> {
+        let (sha256, bytes) = sha256_file(path)?;
+        Ok(SourceMeta {
+            name: path
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default(),
+            bytes,
+            sha256,
+        })
+    }
+}
+
+/// SHA-256 (hex) and size of a file.
+pub fn sha256_file(path: &Path) -> Result<(String, u64)> {
+    let mut f = File::open(path).map_err(|e| Error::Open {
+        file: path.to_path_buf(),
+        source: e,
+    })?;
+    let mut h = Sha256::new();
+    let mut buf = vec![0u8; 1 << 20];
+    let mut total = 0u64;
+    loop {
+        let n = f.read(&mut buf).map_err(|e| Error::Open {
+            file: path.to_path_buf(),
+            source: e,
+        })?;
+        if n == 0 {
+            break;
+        }
+        total += n as u64;
+        h.update(&buf[..n]);
+    }
+    Ok((hex(&h.finalize()), total))
+}
+
+fn hex(b: &[u8]) -> String {
+    b.iter().map(|x| format!("{x:02x}")).collect()
+}
+
+/// What the archive says about one channel.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ChannelMeta {
+    /// Name.
+    pub name: String,
+    /// Value type.
+    pub value_type: ValueType,
+    /// Sample rate (Hz).
+    pub sample_rate_hz: Option<f64>,
+    /// Runs (stretches between holes).
+    pub runs: usize,
+    /// Rows (samples) in the source.
+    pub rows: u64,
+    /// Whether the rows had to be sorted.
+    pub sorted_on_read: bool,
+    /// How the fundamental was found: `given`, `estimated`, `not_periodic`, or `mixed`.
+    pub fundamental: String,
+    /// First estimate or given value (Hz).
+    pub fundamental_hz: Option<f64>,
+    /// Confidence of the first estimate (autocorrelation at the period).
+    pub confidence: Option<f64>,
+    /// Lowest and highest tracked fundamental (Hz).
+    pub tracked_hz: Option<(f64, f64)>,
+}
+
+impl ChannelMeta {
+    /// Start a channel's metadata.
+    pub fn new(
+        info: &ChannelInfo,
+        sample_rate: Option<f64>,
+        runs: usize,
+        rows: u64,
+        sorted: bool,
+    ) -> Self {
+        ChannelMeta {
+            name: info.name.clone(),
+            value_type: info.value_type,
+            sample_rate_hz: sample_rate,
+            runs,
+            rows,
+            sorted_on_read: sorted,
+            fundamental: String::new(),
+            fundamental_hz: None,
+            confidence: None,
+            tracked_hz: None,
+        }
+    }
+
+    /// Fold a run's segmentation into the channel's summary.
+    pub fn note_plan(&mut self, plan: &SegmentPlan) {
+        let kind = match plan.source {
+            FundamentalSource::Given => "given",
+            FundamentalSource::Estimated => "estimated",
+            FundamentalSource::NotPeriodic => "not_periodic",
+        };
+        if self.fundamental.is_empty() {
+            self.fundamental = kind.to_string();
+            self.fundamental_hz = plan.fundamental.map(|e| e.hz);
+            self.confidence = plan.fundamental.map(|e| e.confidence);
+        } else if self.fundamental != kind {
+            self.fundamental = "mixed".into();
+        }
+        if let Some((lo, hi)) = plan.tracked_range {
+            self.tracked_hz = Some(match self.tracked_hz {
+                Some((a, b)) => (a.min(lo), b.max(hi)),
+                None => (lo, hi),
+            });
+        }
+    }
+}
+
+/// The archive's file-level metadata.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct ArchiveMeta {
+    /// Format version `MAJOR.MINOR`.
+    pub format: String,
+    /// Writer.
+    pub writer: String,
+    /// Source.
+    pub source: SourceMeta,
+    /// Resolved settings (as JSON).
+    pub settings: serde_json::Value,
+    /// Source schema, for decoding back to the source layout.
+    pub schema: SourceSchema,
+    /// Channels.
+    pub channels: Vec<ChannelMeta>,
+}
+
+impl ArchiveMeta {
+    /// Build the metadata of a new archive.
+    pub fn new(
+        source: SourceMeta,
+        settings: &Settings,
+        schema: SourceSchema,
+        channels: Vec<ChannelMeta>,
+    ) -> Self {
+        ArchiveMeta {
+            format: FORMAT_VERSION.into(),
+            writer: WRITER.into(),
+            source,
+            settings: serde_json::to_value(settings).unwrap_or_default(),
+            schema,
+            channels,
+        }
+    }
+}
+
+/// The archive's Arrow schema.
+pub fn archive_schema() -> Schema {
+    let f32n = |n: &str| Field::new(n, DataType::Float32, true);
+    let mut fields = vec![
+        Field::new("channel", DataType::Utf8, false),
+        Field::new(
+            "start",
+            DataType::Timestamp(TimeUnit::Nanosecond, Some("UTC".into())),
+            false,
+        ),
+        Field::new("samples", DataType::Int32, false),
+        Field::new("basis", DataType::Utf8, false),
+        Field::new("order", DataType::Int32, true),
+        Field::new("cycles", DataType::Int32, true),
+        Field::new("budget_rms", DataType::Float32, false),
+        Field::new("error_rms", DataType::Float32, false),
+        Field::new("sample_rate_hz", DataType::Float32, false),
+        f32n("fundamental_hz"),
+        Field::new("rms", DataType::Float32, false),
+    ];
+    for h in 1..=DERIVED_HARMONICS {
+        fields.push(f32n(&format!("h{h}_amp")));
+        fields.push(f32n(&format!("h{h}_phase")));
+    }
+    fields.push(f32n("thd"));
+    fields.push(Field::new("block", DataType::Int32, false));
+    fields.push(Field::new("payload", DataType::Binary, true));
+    fields.push(Field::new("checksum", DataType::UInt32, true));
+    Schema::new(fields)
+}
+
+/// Columns whose bytes count as metadata (not payload, not derived) in `inspect`.
+pub const DERIVED_COLUMNS: &[&str] = &[
+    "fundamental_hz",
+    "rms",
+    "h1_amp",
+    "h1_phase",
+    "h2_amp",
+    "h2_phase",
+    "h3_amp",
+    "h3_phase",
+    "thd",
+];
+
+/// Payload columns in `inspect`.
+pub const PAYLOAD_COLUMNS: &[&str] = &["payload", "checksum"];
+
+fn writer_properties(meta_json: String) -> WriterProperties {
+    let mut b = WriterProperties::builder()
+        .set_compression(Compression::ZSTD(ZstdLevel::try_new(9).unwrap_or_default()))
+        .set_max_row_group_row_count(Some(1 << 20))
+        .set_key_value_metadata(Some(vec![
+            KeyValue::new(KEY_FORMAT.into(), FORMAT_VERSION.to_string()),
+            KeyValue::new(KEY_META.into(), meta_json),
+        ]));
+    let col = |n: &str| ColumnPath::from(n);
+    for n in ["start", "block"] {
+        b = b
+            .set_column_dictionary_enabled(col(n), false)
+            .set_column_encoding(col(n), Encoding::DELTA_BINARY_PACKED);
+    }
+    let mut floats = vec!["error_rms", "rms", "fundamental_hz", "thd", "budget_rms"];
+    let names: Vec<String> = (1..=DERIVED_HARMONICS)
+        .flat_map(|h| [format!("h{h}_amp"), format!("h{h}_phase")])
+        .collect();
+    floats.extend(names.iter().map(String::as_str));
+    for n in floats {
+        b = b
+            .set_column_dictionary_enabled(col(n), false)
+            .set_column_encoding(col(n), Encoding::BYTE_STREAM_SPLIT);
+    }
+    b.set_column_dictionary_enabled(col("payload"), false)
+        .set_column_compression(col("payload"), Compression::UNCOMPRESSED)
+        .set_column_statistics_enabled(col("payload"), EnabledStatistics::None)
+        .set_column_dictionary_enabled(col("checksum"), false)
+        .build()
+}
+
+fn rows_to_batch(rows: &[SegmentRow], schema: &Arc<Schema>) -> Result<RecordBatch, String> {
+    let mut cols: Vec<ArrayRef> = vec![
+        Arc::new(StringArray::from_iter_values(
+            rows.iter().map(|r| r.channel.as_str()),
+        )),
+        Arc::new(
+            TimestampNanosecondArray::from_iter_values(rows.iter().map(|r| r.start_ns))
+                .with_timezone("UTC"),
+        ),
+        Arc::new(Int32Array::from_iter_values(
+            rows.iter().map(|r| r.samples as i32),
+        )),
+        Arc::new(StringArray::from_iter_values(
+            rows.iter().map(|r| r.basis.name()),
+        )),
+        Arc::new(Int32Array::from_iter(
+            rows.iter().map(|r| r.order.map(|v| v as i32)),
+        )),
+        Arc::new(Int32Array::from_iter(
+            rows.iter().map(|r| r.cycles.map(|v| v as i32)),
+        )),
+        Arc::new(Float32Array::from_iter_values(
+            rows.iter().map(|r| r.budget_rms),
+        )),
+        Arc::new(Float32Array::from_iter_values(
+            rows.iter().map(|r| r.error_rms),
+        )),
+        Arc::new(Float32Array::from_iter_values(
+            rows.iter().map(|r| r.sample_rate_hz),
+        )),
+        Arc::new(Float32Array::from_iter(
+            rows.iter().map(|r| r.fundamental_hz),
+        )),
+        Arc::new(Float32Array::from_iter_values(rows.iter().map(|r| r.rms))),
+    ];
+    for h in 0..DERIVED_HARMONICS {
+        let get = |r: &SegmentRow| r.harmonics.get(h).copied().flatten();
+        cols.push(Arc::new(Float32Array::from_iter(
+            rows.iter().map(|r| get(r).map(|v| v.0)),
+        )));
+        cols.push(Arc::new(Float32Array::from_iter(
+            rows.iter().map(|r| get(r).map(|v| v.1)),
+        )));
+    }
+    cols.push(Arc::new(Float32Array::from_iter(
+        rows.iter().map(|r| r.thd),
+    )));
+    cols.push(Arc::new(Int32Array::from_iter_values(
+        rows.iter().map(|r| r.block as i32),
+    )));
+    cols.push(Arc::new(BinaryArray::from_iter(
+        rows.iter().map(|r| r.payload.as_deref()),
+    )));
+    cols.push(Arc::new(UInt32Array::from_iter(
+        rows.iter().map(|r| r.checksum),
+    )));
+    RecordBatch::try_new(schema.clone(), cols).map_err(|e| e.to_string())
+}
+
+/// Refuse an output path that is the source itself.
+pub fn refuse_same_file(source: &Path, out: &Path) -> Result<()> {
+    let same = match (source.canonicalize(), out.canonicalize()) {
+        (Ok(a), Ok(b)) => a == b,
+        _ => false,
+    };
+    if same || source == out {
+        return Err(Error::InvalidOption {
+            name: "out".into(),
+            reason: format!(
+                "{} is the source; choose another output (sources are never overwritten)",
+                out.display()
+            ),
+        });
+    }
+    Ok(())
+}
+
+/// The temporary name an output is written under before it is renamed into place.
+pub fn temp_path(out: &Path) -> PathBuf {
+    let name = out
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "out".into());
+    out.with_file_name(format!(".{name}.cyclarc-tmp.{}", std::process::id()))
+}
+
+/// Write a file durably and atomically: temporary file, fsync, rename, fsync of the folder.
+/// `write` fills the temporary file. On any failure the temporary file is removed and nothing
+/// appears under `out`.
+pub fn write_atomic<T>(out: &Path, write: impl FnOnce(&mut File) -> Result<T>) -> Result<T> {
+    let tmp = temp_path(out);
+    let werr = |e: std::io::Error| Error::Write {
+        file: out.to_path_buf(),
+        source: e,
+    };
+    let result = (|| {
+        let mut f = File::create(&tmp).map_err(werr)?;
+        let v = write(&mut f)?;
+        f.flush().map_err(werr)?;
+        // A failed fsync means the data may not be on disk: fail this output, never retry.
+        f.sync_all().map_err(werr)?;
+        drop(f);
+        std::fs::rename(&tmp, out).map_err(werr)?;
+        sync_dir(out).map_err(werr)?;
+        Ok(v)
+    })();
+    if result.is_err() {
+        let _ = std::fs::remove_file(&tmp);
+    }
+    result
+}
+
+/// fsync the folder holding `path`, so a rename survives a crash.
+pub fn sync_dir(path: &Path) -> std::io::Result<()> {
+    let dir = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    File::open(dir)?.sync_all()
+}
+
+/// Path of the digest file recorded beside an archive.
+pub fn digest_path(archive: &Path) -> PathBuf {
+    let mut s = archive.as_os_str().to_os_string();
+    s.push(".sha256");
+    PathBuf::from(s)
+}
+
+/// Write the archive (and its digest beside it). Returns the archive's size in bytes.
+pub fn write_archive(out: &Path, meta: &ArchiveMeta, blocks: Vec<EncodedBlock>) -> Result<u64> {
+    let meta_json = serde_json::to_string(meta).map_err(|e| Error::WriteParquet {
+        file: out.to_path_buf(),
+        reason: e.to_string(),
+    })?;
+    let schema = Arc::new(archive_schema());
+    let perr = |e: String| Error::WriteParquet {
+        file: out.to_path_buf(),
+        reason: e,
+    };
+    write_atomic(out, |f| {
+        let mut w = ArrowWriter::try_new(
+            f.try_clone().map_err(|e| Error::Write {
+                file: out.to_path_buf(),
+                source: e,
+            })?,
+            schema.clone(),
+            Some(writer_properties(meta_json)),
+        )
+        .map_err(|e| perr(e.to_string()))?;
+        let mut pending: Vec<SegmentRow> = Vec::new();
+        for (id, b) in blocks.into_iter().enumerate() {
+            let crc = crate::pack::checksum(&b.frame);
+            let mut frame = Some(b.frame);
+            for mut r in b.rows {
+                r.block = id as u32;
+                if let Some(fr) = frame.take() {
+                    r.payload = Some(fr);
+                    r.checksum = Some(crc);
+                }
+                pending.push(r);
+            }
+            if pending.len() >= READ_BATCH_ROWS {
+                w.write(&rows_to_batch(&pending, &schema).map_err(perr)?)
+                    .map_err(|e| perr(e.to_string()))?;
+                pending.clear();
+            }
+        }
+        if !pending.is_empty() {
+            w.write(&rows_to_batch(&pending, &schema).map_err(perr)?)
+                .map_err(|e| perr(e.to_string()))?;
+        }
+        w.close().map_err(|e| perr(e.to_string()))?;
+        Ok(())
+    })?;
+    let (digest, size) = sha256_file(out)?;
+    let name = out
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_default();
+    write_atomic(&digest_path(out), |f| {
+        writeln!(f, "{digest}  {name}").map_err(|e| Error::Write {
+            file: digest_path(out),
+            source: e,
+        })
+    })?;
+    Ok(size)
+}
+
+/// An archive read back.
+#[derive(Debug, Clone)]
+pub struct Archive {
+    /// Path.
+    pub path: PathBuf,
+    /// Metadata.
+    pub meta: ArchiveMeta,
+    /// All rows in file order.
+    pub rows: Vec<SegmentRow>,
+    /// Bytes per column (compressed, as stored), for `inspect`.
+    pub column_bytes: Vec<(String, u64)>,
+    /// File size.
+    pub file_bytes: u64,
+}
+
+fn damaged(path: &Path, reason: impl Into<String>) -> Error {
+    Error::Damaged {
+        file: path.to_path_buf(),
+        reason: reason.into(),
+    }
+}
+
+/// Check a `MAJOR.MINOR` version string against what this build reads.
+pub fn check_version(path: &Path, v: &str) -> Result<()> {
+    let major: u32 = v
+        .split('.')
+        .next()
+        .and_then(|m| m.parse().ok())
+        .ok_or_else(|| damaged(path, format!("unreadable format version `{v}`")))?;
+    if major > FORMAT_MAJOR {
+        return Err(Error::FutureVersion {
+            file: path.to_path_buf(),
+            found: v.to_string(),
+            supported: FORMAT_MAJOR,
+        });
+    }
+    if major == 0 {
+        return Err(damaged(path, format!("unknown format version `{v}`")));
+    }
+    Ok(())
+}
+
+/// Read an archive. Damage in the Parquet structure (including the reader's panics) is
+/// reported as [`Error::Damaged`].
+pub fn read_archive(path: &Path) -> Result<Archive> {
+    let builder = match open_parquet(path) {
+        Ok(b) => b,
+        Err(Error::NotParquet { reason, .. }) => return Err(damaged(path, reason)),
+        Err(e) => return Err(e),
+    };
+    let file_bytes = std::fs::metadata(path).map(|m| m.len()).unwrap_or(0);
+    let md = builder.metadata().clone();
+    let kv = md.file_metadata().key_value_metadata();
+    let get = |k: &str| {
+        kv.and_then(|kv| kv.iter().find(|e| e.key == k))
+            .and_then(|e| e.value.clone())
+    };
+    let format = get(KEY_FORMAT).ok_or_else(|| {
+        damaged(
+            path,
+            "no cyclarc format version in the file metadata (not an archive?)",
+        )
+    })?;
+    check_version(path, &format)?;
+    let meta: ArchiveMeta = serde_json::from_str(&get(KEY_META).unwrap_or_default())
+        .map_err(|e| damaged(path, format!("metadata: {e}")))?;
+    check_version(path, &meta.format)?;
+    let mut column_bytes: Vec<(String, u64)> = Vec::new();
+    for rg in md.row_groups() {
+        for c in rg.columns() {
+            let name = c.column_path().string();
+            let size = c.compressed_size().max(0) as u64;
+            match column_bytes.iter_mut().find(|e| e.0 == name) {
+                Some(e) => e.1 += size,
+                None => column_bytes.push((name, size)),
+            }
+        }
+    }
+    let reader = builder
+        .with_batch_size(READ_BATCH_ROWS)
+        .build()
+        .map_err(|e| damaged(path, e.to_string()))?;
+    let mut rows = Vec::new();
+    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| -> Result<()> {
+        for batch in reader {
+            let batch = batch.map_err(|e| damaged(path, e.to_string()))?;
+            batch_to_rows(&batch, &mut rows).map_err(|e| damaged(path, e))?;
+        }
+        Ok(())
+    }));
+    match result {
+        Ok(r) => r?,
+        Err(_) => return Err(damaged(path, "the Parquet reader failed on damaged data")),
+    }
+    Ok(Archive {
+        path: path.to_path_buf(),
+        meta,
+        rows,
+        column_bytes,
+        file_bytes,
+    })
+}
+
+fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SegmentRow>) -> Result<(), String> {
+    let col = |name: &str| -> Result<&ArrayRef, String> {
+        b.column_by_name(name)
+            .ok_or_else(|| format!("column `{name}` is missing"))
+    };
+    let typed = |name: &str, dt: &DataType| -> Result<&ArrayRef, String> {
+        let c = col(name)?;
+        if c.data_type() != dt {
+            return Err(format!("column `{name}` has type {}", c.data_type()));
+        }
+        Ok(c)
+    };
+    let f32t = DataType::Float32;
+    let i32t = DataType::Int32;
+    let channel = typed("channel", &DataType::Utf8)?.as_string::<i32>();
+    let start = col("start")?;
+    let start = match start.data_type() {
+        DataType::Timestamp(TimeUnit::Nanosecond, _) => {
+            start.as_primitive::<TimestampNanosecondType>()
+        }
+        other => return Err(format!("column `start` has type {other}")),
+    };
+    let samples = typed("samples", &i32t)?.as_primitive::<Int32Type>();
+    let basis = typed("basis", &DataType::Utf8)?.as_string::<i32>();
+    let order = typed("order", &i32t)?.as_primitive::<Int32Type>();
+    let cycles = typed("cycles", &i32t)?.as_primitive::<Int32Type>();
+    let f = |n: &str| -> Result<&arrow::array::PrimitiveArray<Float32Type>, String> {
+        Ok(typed(n, &f32t)?.as_primitive::<Float32Type>())
+    };
+    let (budget, error, rate, fund, rms, thd) = (
+        f("budget_rms")?,
+        f("error_rms")?,
+        f("sample_rate_hz")?,
+        f("fundamental_hz")?,
+        f("rms")?,
+        f("thd")?,
+    );
+    let mut harm = Vec::new();
+    for h in 1..=DERIVED_HARMONICS {
+        harm.push((f(&format!("h{h}_amp"))?, f(&format!("h{h}_phase"))?));
+    }
+    let block = typed("block", &i32t)?.as_primitive::<Int32Type>();
+    let payload = typed("payload", &DataType::Binary)?.as_binary::<i32>();
+    let checksum = typed("checksum", &DataType::UInt32)?.as_primitive::<UInt32Type>();
+    let opt = |a: &arrow::array::PrimitiveArray<Float32Type>, i: usize| {
+        (!a.is_null(i)).then(|| a.value(i))
+    };
+    for i in 0..b.num_rows() {
+        let basis_name = basis.value(i);
+        let basis = Basis::from_name(basis_name)
+            .ok_or_else(|| format!("row {}: unknown basis `{basis_name}`", out.len()))?;
+        let nonneg = |v: i32, what: &str| -> Result<u32, String> {
+            u32::try_from(v).map_err(|_| format!("row {}: negative {what}", out.len()))
+        };
+        out.push(SegmentRow {
+            channel: channel.value(i).to_string(),
+            start_ns: start.value(i),
+            samples: nonneg(samples.value(i), "samples")?,
+            basis,
+            order: if order.is_null(i) {
+                None
+            } else {
+                Some(nonneg(order.value(i), "order")?)
+            },
+            cycles: if cycles.is_null(i) {
+                None
+            } else {
+                Some(nonneg(cycles.value(i), "cycles")?)
+            },
+            budget_rms: budget.value(i),
+            error_rms: error.value(i),
+            sample_rate_hz: rate.value(i),
+            fundamental_hz: opt(fund, i),
+            rms: rms.value(i),
+            harmonics: harm.iter().map(|(a, p)| opt(a, i).zip(opt(p, i))).collect(),
+            thd: opt(thd, i),
+            block: nonneg(block.value(i), "block")?,
+            payload: (!payload.is_null(i)).then(|| payload.value(i).to_vec()),
+            checksum: (!checksum.is_null(i)).then(|| checksum.value(i)),
+        });
+    }
+    Ok(())
+}
+
+/// Check the digest recorded beside an archive: `Ok(Some(true))` matches, `Ok(Some(false))`
+/// differs, `Ok(None)` no digest file.
+pub fn check_digest(path: &Path) -> Result<Option<bool>> {
+    let dp = digest_path(path);
+    let Ok(text) = std::fs::read_to_string(&dp) else {
+        return Ok(None);
+    };
+    let recorded = text.split_whitespace().next().unwrap_or("").to_string();
+    let (actual, _) = sha256_file(path)?;
+    Ok(Some(recorded == actual))
+}
+
+/// Rows of one block, in order, as index ranges into `rows`.
+pub fn block_spans(rows: &[SegmentRow]) -> Vec<std::ops::Range<usize>> {
+    let mut out = Vec::new();
+    let mut start = 0;
+    for i in 1..=rows.len() {
+        if i == rows.len() || rows[i].block != rows[start].block {
+            out.push(start..i);
+            start = i;
+        }
+    }
+    out
+}

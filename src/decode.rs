@@ -1,0 +1,340 @@
+//! Decode: rebuild the samples and timestamps of a block from its unpacked segments —
+//! prediction, dequantization and inverse FFT for Fourier segments, dequantization for
+//! time-domain samples, bit patterns for lossless ones — and put the NaN, ±Inf and null
+//! values back where they were.
+//!
+//! The encoder calls the same functions ([`crate::fit::synthesize`],
+//! [`crate::signal::predict`]), so the error it records is the error of this output.
+//!
+//! Does not: compare with sources (that is `verify`) or read files (that is `archive`).
+
+use crate::archive::{block_spans, Archive};
+use crate::fit::{dequantize_bin, synthesize, undelta_codes, Basis, Prev};
+use crate::pack::{Block, SegmentRecord, Special, SpecialKind};
+use crate::signal::{is_real_bin, predict, Transform, ValueType, C64};
+
+/// One rebuilt segment.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DecodedSegment {
+    /// Output values in the channel's type (as f64); non-finite positions hold NaN.
+    pub values: Vec<f64>,
+    /// Null, NaN (with bits) and ±Inf values by index.
+    pub specials: Vec<Special>,
+    /// Reconstructed coefficients (Fourier only), bins 0 … L−1.
+    pub coeffs: Vec<C64>,
+}
+
+impl DecodedSegment {
+    /// Whether sample i is null.
+    pub fn is_null(&self, i: usize) -> bool {
+        self.specials
+            .binary_search_by_key(&(i as u32), |s| s.index)
+            .is_ok_and(|p| self.specials[p].kind == SpecialKind::Null)
+    }
+}
+
+/// Rebuild every segment of a block, in order.
+pub fn rebuild_block(block: &Block, fft: &dyn Transform) -> Result<Vec<DecodedSegment>, String> {
+    let mut prev: Option<Prev> = None;
+    let mut out = Vec::with_capacity(block.segments.len());
+    for (j, seg) in block.segments.iter().enumerate() {
+        let (values, coeffs) = match seg.basis {
+            Basis::Fourier => {
+                let coeffs = fourier_coeffs(seg, prev.as_ref())
+                    .map_err(|e| format!("segment {j} of block: {e}"))?;
+                let (_, values) = synthesize(&coeffs, seg.len, block.value_type, fft);
+                (values, coeffs)
+            }
+            Basis::Samples => {
+                let q = if seg.predicted {
+                    undelta_codes(&seg.codes)
+                } else {
+                    seg.codes.clone()
+                };
+                let s = seg.step as f64;
+                let v = q
+                    .iter()
+                    .map(|&c| block.value_type.round(c as f64 * s))
+                    .collect();
+                (v, Vec::new())
+            }
+            Basis::Lossless => (lossless_values(seg, block.value_type), Vec::new()),
+        };
+        prev = (seg.basis == Basis::Fourier).then(|| Prev {
+            coeffs: coeffs.clone(),
+            n: seg.len,
+            ideal: seg.ideal_len as f64,
+        });
+        let mut values = values;
+        for sp in &seg.specials {
+            if let Some(v) = values.get_mut(sp.index as usize) {
+                *v = special_value(sp.kind, block.value_type);
+            }
+        }
+        out.push(DecodedSegment {
+            values,
+            specials: seg.specials.clone(),
+            coeffs,
+        });
+    }
+    Ok(out)
+}
+
+/// The f64 stand-in for a special value (NaN for null and NaN, exact bits for f64 NaN).
+pub fn special_value(kind: SpecialKind, value_type: ValueType) -> f64 {
+    match kind {
+        SpecialKind::Null => f64::NAN,
+        SpecialKind::Nan(bits) => match value_type {
+            ValueType::F32 => f32::from_bits(bits as u32) as f64,
+            _ => f64::from_bits(bits),
+        },
+        SpecialKind::PosInf => f64::INFINITY,
+        SpecialKind::NegInf => f64::NEG_INFINITY,
+    }
+}
+
+/// Reconstruct the kept Fourier coefficients of a segment from its codes and prediction.
+pub fn fourier_coeffs(seg: &SegmentRecord, prev: Option<&Prev>) -> Result<Vec<C64>, String> {
+    let n = seg.len;
+    let l = seg.order as usize;
+    let pred = match (seg.predicted, prev) {
+        (true, Some(p)) => predict(&p.coeffs, p.n, p.ideal, n, l),
+        (true, None) => return Err("predicted segment without a previous Fourier segment".into()),
+        (false, _) => vec![C64::new(0.0, 0.0); l],
+    };
+    let step = seg.step as f64;
+    let mut codes = seg.codes.iter();
+    let mut out = Vec::with_capacity(l);
+    for (k, &p) in pred.iter().enumerate() {
+        let qr = *codes.next().ok_or("too few codes")?;
+        let qi = if is_real_bin(k, n) {
+            0
+        } else {
+            *codes.next().ok_or("too few codes")?
+        };
+        out.push(dequantize_bin(p, qr, qi, step, k, n));
+    }
+    Ok(out)
+}
+
+fn lossless_values(seg: &SegmentRecord, value_type: ValueType) -> Vec<f64> {
+    let mut out = vec![f64::NAN; seg.len];
+    let mut sp = seg.specials.iter().peekable();
+    let ints = if value_type.is_integer() {
+        if seg.predicted {
+            undelta_codes(&seg.codes)
+        } else {
+            seg.codes.clone()
+        }
+    } else {
+        Vec::new()
+    };
+    let mut next = 0usize;
+    for (i, slot) in out.iter_mut().enumerate() {
+        if sp.peek().is_some_and(|s| s.index as usize == i) {
+            sp.next();
+            continue;
+        }
+        *slot = match value_type {
+            ValueType::F64 => seg.raw.get(next).map_or(f64::NAN, |&b| f64::from_bits(b)),
+            ValueType::F32 => seg
+                .raw
+                .get(next)
+                .map_or(f64::NAN, |&b| f32::from_bits(b as u32) as f64),
+            ValueType::I16 | ValueType::I32 => ints.get(next).map_or(f64::NAN, |&v| v as f64),
+        };
+        next += 1;
+    }
+    out
+}
+
+/// A block read from an archive, checked and rebuilt.
+#[derive(Debug, Clone)]
+pub struct UnpackedBlock {
+    /// The block's rows in the archive.
+    pub rows: std::ops::Range<usize>,
+    /// The unpacked block.
+    pub block: Block,
+    /// Its rebuilt segments.
+    pub segments: Vec<DecodedSegment>,
+}
+
+/// Check a block's checksum, unpack it, cross-check it with its rows, and rebuild it.
+pub fn unpack_block(
+    archive: &Archive,
+    rows: std::ops::Range<usize>,
+    fft: &dyn Transform,
+) -> Result<UnpackedBlock, String> {
+    let all = &archive.rows[rows.clone()];
+    let first = &all[0];
+    let id = first.block;
+    let (Some(frame), Some(crc)) = (&first.payload, first.checksum) else {
+        return Err(format!("block {id}: payload or checksum missing"));
+    };
+    if all[1..]
+        .iter()
+        .any(|r| r.payload.is_some() || r.checksum.is_some())
+    {
+        return Err(format!(
+            "block {id}: payload on a row that does not start the block"
+        ));
+    }
+    if crate::pack::checksum(frame) != crc {
+        return Err(format!("block {id}: checksum mismatch (payload damaged)"));
+    }
+    let block = crate::pack::decode_block(frame).map_err(|e| format!("block {id}: {e}"))?;
+    let channel = archive
+        .meta
+        .channels
+        .iter()
+        .find(|c| c.name == first.channel)
+        .ok_or_else(|| {
+            format!(
+                "block {id}: channel `{}` not in the metadata",
+                first.channel
+            )
+        })?;
+    if block.value_type != channel.value_type {
+        return Err(format!("block {id}: value type differs from the metadata"));
+    }
+    if block.segments.len() != all.len() {
+        return Err(format!(
+            "block {id}: {} segments in the payload, {} rows",
+            block.segments.len(),
+            all.len()
+        ));
+    }
+    let mut offset = 0usize;
+    for (r, s) in all.iter().zip(&block.segments) {
+        let order_ok = match s.basis {
+            Basis::Fourier => r.order == Some(s.order),
+            _ => r.order.is_none(),
+        };
+        if r.channel != first.channel
+            || r.samples as usize != s.len
+            || r.basis != s.basis
+            || !order_ok
+            || r.start_ns != block.times.time(offset)
+        {
+            return Err(format!(
+                "block {id}: row for segment at {} ns disagrees with the payload",
+                r.start_ns
+            ));
+        }
+        offset += s.len;
+    }
+    if !block.times.residuals.is_empty() && block.times.residuals.len() != offset {
+        return Err(format!(
+            "block {id}: timestamp residuals do not cover the block"
+        ));
+    }
+    let segments = rebuild_block(&block, fft).map_err(|e| format!("block {id}: {e}"))?;
+    Ok(UnpackedBlock {
+        rows,
+        block,
+        segments,
+    })
+}
+
+/// One channel's decoded samples, in time order.
+#[derive(Debug, Clone, Default)]
+pub struct ChannelSeries {
+    /// Name.
+    pub name: String,
+    /// Times (ns).
+    pub times: Vec<i64>,
+    /// Values (NaN at specials).
+    pub values: Vec<f64>,
+    /// (index, kind) of null and non-finite values.
+    pub specials: Vec<(usize, SpecialKind)>,
+    /// Per archive row of the channel: (row index, sample range in this series).
+    pub segments: Vec<(usize, std::ops::Range<usize>)>,
+}
+
+/// Decode the selected channels (all when `channels` is empty), keeping samples with
+/// `from ≤ t < to`. Blocks outside the range are not unpacked.
+pub fn decode_channels(
+    archive: &Archive,
+    channels: &[String],
+    from: Option<i64>,
+    to: Option<i64>,
+    fft: &dyn Transform,
+) -> Result<Vec<ChannelSeries>, crate::Error> {
+    use rayon::prelude::*;
+    let spans = block_spans(&archive.rows);
+    let wanted = |name: &str| channels.is_empty() || channels.iter().any(|c| c == name);
+    let selected: Vec<_> = spans
+        .into_iter()
+        .filter(|s| wanted(&archive.rows[s.start].channel))
+        .filter(|s| {
+            // Blocks entirely before `from` can be skipped: the next block's start bounds them.
+            let first = archive.rows[s.start].start_ns;
+            to.is_none_or(|t| first < t)
+        })
+        .collect();
+    let unpacked: Vec<UnpackedBlock> = selected
+        .into_par_iter()
+        .map(|s| unpack_block(archive, s, fft))
+        .collect::<Result<_, String>>()
+        .map_err(|reason| crate::Error::Damaged {
+            file: archive.path.clone(),
+            reason,
+        })?;
+    let mut out: Vec<ChannelSeries> = Vec::new();
+    for ub in unpacked {
+        let name = &archive.rows[ub.rows.start].channel;
+        if out.last().is_none_or(|c| &c.name != name) {
+            out.push(ChannelSeries {
+                name: name.clone(),
+                ..Default::default()
+            });
+        }
+        let Some(series) = out.last_mut() else {
+            continue;
+        };
+        let mut offset = 0usize;
+        for (row, seg) in ub.rows.clone().zip(&ub.segments) {
+            let begin = series.times.len();
+            let mut sp = seg.specials.iter().peekable();
+            for (i, &v) in seg.values.iter().enumerate() {
+                let t = ub.block.times.time(offset + i);
+                let special = match sp.peek() {
+                    Some(s) if s.index as usize == i => sp.next().map(|s| s.kind),
+                    _ => None,
+                };
+                if from.is_some_and(|f| t < f) || to.is_some_and(|e| t >= e) {
+                    continue;
+                }
+                if let Some(k) = special {
+                    series.specials.push((series.times.len(), k));
+                }
+                series.times.push(t);
+                series.values.push(v);
+            }
+            offset += seg.values.len();
+            if series.times.len() > begin {
+                series.segments.push((row, begin..series.times.len()));
+            }
+        }
+    }
+    // Channels may appear in several places only if the archive was written out of order;
+    // merge by name, keeping time order.
+    out.sort_by(|a, b| a.name.cmp(&b.name));
+    out.dedup_by(|b, a| {
+        if a.name != b.name {
+            return false;
+        }
+        let base = a.times.len();
+        a.times.append(&mut b.times);
+        a.values.append(&mut b.values);
+        a.specials
+            .extend(b.specials.iter().map(|&(i, k)| (i + base, k)));
+        a.segments.extend(
+            b.segments
+                .iter()
+                .map(|(r, s)| (*r, s.start + base..s.end + base)),
+        );
+        true
+    });
+    Ok(out)
+}

@@ -1,0 +1,691 @@
+//! Fit: per segment, the orthonormal FFT, the exact error of every order, the quantizer step
+//! and least order, and the choice of basis (Fourier coefficients, time-domain samples, or
+//! lossless). The result is a [`FitPlan`] (plain data, comparable in tests) plus the integer
+//! codes that `pack` turns into bytes.
+//!
+//! The error recorded for a segment is the error of what the decoder outputs: after choosing
+//! step and order from the Parseval energies, the encoder synthesizes the segment exactly as
+//! [`crate::decode`] does, rounds to the output type, and measures. Because rustfft picks
+//! AVX, SSE or scalar kernels at run time, another machine may reconstruct values that differ
+//! in the last bits. The encoder therefore widens the measured error by a margin before
+//! comparing with the budget: each reconstructed value may move by
+//! `τ = FP_MARGIN_REL · max|y| ` ([`FP_MARGIN_REL`] = 1e-9, some six orders of magnitude above
+//! the FFT's own rounding error); for f64 output the RMS may grow by τ, and for rounded output
+//! types every sample whose rounding could flip within ±τ is charged its worse outcome.
+//! A segment is kept only when that widened error is within budget.
+//!
+//! Does not: produce bytes (that is `pack`), or know about files and channels.
+
+use rustfft::num_complex::Complex;
+use serde::Serialize;
+
+use crate::signal::{
+    fill_non_finite, half_len, is_real_bin, predict, weight, Transform, ValueType, C64,
+};
+
+/// Relative floating-point margin on reconstructed values (see the module docs).
+pub const FP_MARGIN_REL: f64 = 1e-9;
+
+/// Quantizer steps are searched on a grid of this many steps per octave.
+pub const STEPS_PER_OCTAVE: f64 = 4.0;
+
+/// How many times the target is tightened when the synthesized output misses the budget.
+const MAX_TIGHTEN: usize = 8;
+
+/// Values beyond this magnitude are stored losslessly (their squares would overflow).
+pub const MAX_LOSSY_MAGNITUDE: f64 = 1e150;
+
+/// The representation of a segment in the archive.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
+#[serde(rename_all = "lowercase")]
+pub enum Basis {
+    /// Quantized Fourier coefficients of bins 0 … order−1.
+    Fourier,
+    /// Samples quantized in the time domain with a uniform step.
+    Samples,
+    /// Values stored bit-exact.
+    Lossless,
+}
+
+impl Basis {
+    /// The name stored in the archive's `basis` column.
+    pub fn name(self) -> &'static str {
+        match self {
+            Basis::Fourier => "fourier",
+            Basis::Samples => "samples",
+            Basis::Lossless => "lossless",
+        }
+    }
+
+    /// Parse an archive `basis` value.
+    pub fn from_name(s: &str) -> Option<Basis> {
+        match s {
+            "fourier" => Some(Basis::Fourier),
+            "samples" => Some(Basis::Samples),
+            "lossless" => Some(Basis::Lossless),
+            _ => None,
+        }
+    }
+
+    /// Tag byte used inside payloads.
+    pub fn tag(self) -> u8 {
+        match self {
+            Basis::Fourier => 0,
+            Basis::Samples => 1,
+            Basis::Lossless => 2,
+        }
+    }
+
+    /// Inverse of [`Basis::tag`].
+    pub fn from_tag(t: u8) -> Option<Basis> {
+        match t {
+            0 => Some(Basis::Fourier),
+            1 => Some(Basis::Samples),
+            2 => Some(Basis::Lossless),
+            _ => None,
+        }
+    }
+}
+
+/// The decision made for one segment: plain data.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct FitPlan {
+    /// Chosen representation.
+    pub basis: Basis,
+    /// Truncation order L (Fourier only).
+    pub order: Option<u32>,
+    /// Quantizer step Δ (orthonormal-coefficient units for Fourier, channel units for
+    /// samples; 0 for lossless). Stored exactly as f32.
+    pub step: f32,
+    /// Whether the codes are residuals from a prediction (previous segment for Fourier,
+    /// previous sample for samples and lossless integers).
+    pub predicted: bool,
+    /// The RMS target that order and step were chosen against (≤ budget).
+    pub target_rms: f64,
+    /// The resolved budget (channel units, RMS).
+    pub budget_rms: f64,
+    /// RMS error of the decoder's output over the finite values, as measured here.
+    pub error_rms: f64,
+    /// `error_rms` widened by the floating-point margin; never above `budget_rms`.
+    pub bound_rms: f64,
+    /// Estimated coded size in bits (the proxy the choice minimized).
+    pub cost_bits: f64,
+}
+
+/// A fitted segment: the plan, the integer codes, and the decoder's reconstruction.
+#[derive(Debug, Clone)]
+pub struct Fitted {
+    /// The decision.
+    pub plan: FitPlan,
+    /// Integer codes: Fourier — quantized residuals of bins 0 … L−1, real part then imaginary
+    /// part (DC and Nyquist real only); samples — quantized samples (or their first
+    /// differences when predicted); lossless integers — values (or differences).
+    pub codes: Vec<i64>,
+    /// Lossless floats: the bit patterns of the values (f64 bits, or f32 bits widened).
+    pub raw: Vec<u64>,
+    /// The decoder's output for every sample (non-finite positions hold the fill).
+    pub output: Vec<f64>,
+    /// Reconstructed coefficients of bins 0 … L−1 (Fourier), for the next prediction.
+    pub coeffs: Vec<C64>,
+    /// Coefficients of the decoded segment for derived columns (Fourier: as stored; other
+    /// bases: the source's spectrum).
+    pub spectrum: Vec<C64>,
+}
+
+/// What a segment's prediction is based on: the previous Fourier segment of the same block.
+#[derive(Debug, Clone)]
+pub struct Prev {
+    /// Reconstructed coefficients of bins 0 … L−1.
+    pub coeffs: Vec<C64>,
+    /// Its length in samples.
+    pub n: usize,
+    /// Its ideal length Λ = K·P (as stored, f32 precision).
+    pub ideal: f64,
+}
+
+/// Everything the fitter needs to know about one segment.
+#[derive(Debug, Clone, Copy)]
+pub struct SegmentInput<'a> {
+    /// Source values; NaN/±Inf/null positions hold any non-finite value.
+    pub values: &'a [f64],
+    /// The output type.
+    pub value_type: ValueType,
+    /// Resolved RMS budget in channel units (0 = lossless).
+    pub budget_rms: f64,
+}
+
+/// Number of integer codes for order `l` on an `n`-sample segment.
+pub fn code_count(l: usize, n: usize) -> usize {
+    (0..l).map(|k| if is_real_bin(k, n) { 1 } else { 2 }).sum()
+}
+
+/// Quantize residual `c − p` with step Δ; returns (code_re, code_im, error energy of the bin
+/// with weight).
+#[inline]
+fn quantize_bin(c: C64, p: C64, step: f64, k: usize, n: usize) -> (i64, i64, f64) {
+    let r = c - p;
+    let qr = (r.re / step).round();
+    let qi = if is_real_bin(k, n) {
+        0.0
+    } else {
+        (r.im / step).round()
+    };
+    let er = r.re - qr * step;
+    let ei = if is_real_bin(k, n) {
+        r.im
+    } else {
+        r.im - qi * step
+    };
+    (qr as i64, qi as i64, weight(k, n) * (er * er + ei * ei))
+}
+
+/// Exact error energy (summed over the N samples, before output rounding) of every order
+/// L = 0 … ⌊N/2⌋+1 for coefficients `c`, optional prediction `pred` and step Δ:
+/// `E(L) = Σ_{k<L} w_k |c_k − p_k − Δ·q_k|² + Σ_{k≥L} w_k |c_k|²`.
+pub fn error_by_order(c: &[C64], pred: Option<&[C64]>, step: f64, n: usize) -> Vec<f64> {
+    let m = c.len();
+    let mut tail = vec![0.0; m + 1];
+    for k in (0..m).rev() {
+        tail[k] = tail[k + 1] + weight(k, n) * c[k].norm_sqr();
+    }
+    let mut out = Vec::with_capacity(m + 1);
+    let mut head = 0.0;
+    out.push(tail[0]);
+    for k in 0..m {
+        let p = pred.map_or(C64::new(0.0, 0.0), |p| {
+            p.get(k).copied().unwrap_or_default()
+        });
+        head += quantize_bin(c[k], p, step, k, n).2;
+        out.push(head + tail[k + 1]);
+    }
+    out
+}
+
+/// The codes of order `l`, step Δ, optional prediction; and the reconstructed coefficients.
+pub fn quantize(
+    c: &[C64],
+    pred: Option<&[C64]>,
+    step: f64,
+    n: usize,
+    l: usize,
+) -> (Vec<i64>, Vec<C64>) {
+    let mut codes = Vec::with_capacity(2 * l);
+    let mut rec = Vec::with_capacity(l);
+    for (k, &ck) in c.iter().enumerate().take(l) {
+        let p = pred.map_or(C64::new(0.0, 0.0), |p| {
+            p.get(k).copied().unwrap_or_default()
+        });
+        let (qr, qi, _) = quantize_bin(ck, p, step, k, n);
+        codes.push(qr);
+        if !is_real_bin(k, n) {
+            codes.push(qi);
+        }
+        rec.push(dequantize_bin(p, qr, qi, step, k, n));
+    }
+    (codes, rec)
+}
+
+/// Reconstruct one bin from prediction and codes (shared by encoder and decoder).
+#[inline]
+pub fn dequantize_bin(p: C64, qr: i64, qi: i64, step: f64, k: usize, n: usize) -> C64 {
+    if is_real_bin(k, n) {
+        Complex::new(p.re + step * qr as f64, 0.0)
+    } else {
+        Complex::new(p.re + step * qr as f64, p.im + step * qi as f64)
+    }
+}
+
+/// Estimated coded size in bits of a sequence of integer codes: its empirical order-0
+/// entropy, plus a table cost per distinct symbol; magnitudes of 256 and above are escaped.
+pub fn cost_bits(codes: &[i64]) -> f64 {
+    if codes.is_empty() {
+        return 0.0;
+    }
+    let mut hist = [0u32; 512];
+    let mut escaped_bits = 0.0;
+    for &q in codes {
+        let z = zigzag(q);
+        if z < 511 {
+            hist[z as usize] += 1;
+        } else {
+            hist[511] += 1;
+            escaped_bits += 2.0 * (64 - z.leading_zeros()) as f64;
+        }
+    }
+    let n = codes.len() as f64;
+    let mut bits = escaped_bits;
+    for &h in hist.iter().filter(|&&h| h > 0) {
+        let h = h as f64;
+        bits += h * (n / h).log2() + 6.0;
+    }
+    bits
+}
+
+/// ZigZag map of a signed integer.
+#[inline]
+pub fn zigzag(v: i64) -> u64 {
+    ((v << 1) ^ (v >> 63)) as u64
+}
+
+/// Inverse of [`zigzag`].
+#[inline]
+pub fn unzigzag(z: u64) -> i64 {
+    ((z >> 1) as i64) ^ -((z & 1) as i64)
+}
+
+/// Header cost proxy (bits) of a segment in each basis.
+const HEADER_BITS: f64 = 24.0;
+
+/// RMS error of `output` against `source` over finite source values, and the error widened
+/// by the floating-point margin `tau` (see the module docs). `raw_y` is the unrounded
+/// reconstruction when the output went through an FFT (None when exact).
+fn measure(
+    source: &[f64],
+    output: &[f64],
+    raw_y: Option<&[f64]>,
+    value_type: ValueType,
+) -> (f64, f64) {
+    let mut sum = 0.0;
+    let mut worst = 0.0;
+    let mut count = 0usize;
+    let tau = raw_y.map(|y| {
+        let peak = y.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+        FP_MARGIN_REL * peak + f64::MIN_POSITIVE
+    });
+    for (i, (&x, &o)) in source.iter().zip(output).enumerate() {
+        if !x.is_finite() {
+            continue;
+        }
+        count += 1;
+        let e = o - x;
+        sum += e * e;
+        if let (Some(tau), Some(y)) = (tau, raw_y) {
+            match value_type {
+                ValueType::F64 => {
+                    let w = e.abs() + tau;
+                    worst += w * w;
+                }
+                _ => {
+                    let lo = value_type.round(y[i] - tau) - x;
+                    let hi = value_type.round(y[i] + tau) - x;
+                    worst += (lo * lo).max(hi * hi).max(e * e);
+                }
+            }
+        } else {
+            worst += e * e;
+        }
+    }
+    if count == 0 {
+        return (0.0, 0.0);
+    }
+    let n = count as f64;
+    ((sum / n).sqrt(), (worst / n).sqrt())
+}
+
+/// Round a budget to the f32 that is not above it (budgets are stored as f32).
+pub fn budget_to_f32(b: f64) -> f64 {
+    let f = b as f32;
+    if (f as f64) > b {
+        f32_next_down(f) as f64
+    } else {
+        f as f64
+    }
+}
+
+/// Round a recorded error up to the f32 that is not below it.
+pub fn error_to_f32(e: f64) -> f32 {
+    let f = e as f32;
+    if (f as f64) < e {
+        f32_next_up(f)
+    } else {
+        f
+    }
+}
+
+fn f32_next_down(f: f32) -> f32 {
+    if f.is_nan() || f == f32::NEG_INFINITY {
+        return f;
+    }
+    if f == 0.0 {
+        return -f32::from_bits(1);
+    }
+    let b = f.to_bits();
+    f32::from_bits(if f > 0.0 { b - 1 } else { b + 1 })
+}
+
+fn f32_next_up(f: f32) -> f32 {
+    if f.is_nan() || f == f32::INFINITY {
+        return f;
+    }
+    if f == 0.0 {
+        return f32::from_bits(1);
+    }
+    let b = f.to_bits();
+    f32::from_bits(if f > 0.0 { b + 1 } else { b - 1 })
+}
+
+/// Synthesize a Fourier segment as the decoder does: inverse transform of the kept bins, then
+/// rounding to the output type. Returns (unrounded, rounded).
+pub fn synthesize(
+    coeffs: &[C64],
+    n: usize,
+    value_type: ValueType,
+    fft: &dyn Transform,
+) -> (Vec<f64>, Vec<f64>) {
+    let mut full = vec![C64::new(0.0, 0.0); half_len(n)];
+    full[..coeffs.len().min(half_len(n))].copy_from_slice(&coeffs[..coeffs.len().min(half_len(n))]);
+    let y = fft.inverse(&full, n);
+    let out = y.iter().map(|&v| value_type.round(v)).collect();
+    (y, out)
+}
+
+/// Fit one segment. `prev` is the previous Fourier segment of the same block, if any.
+pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Transform) -> Fitted {
+    let SegmentInput {
+        values,
+        value_type,
+        budget_rms,
+    } = input;
+    let n = values.len();
+    let mut filled = values.to_vec();
+    let n_finite = fill_non_finite(&mut filled);
+    let huge = filled.iter().any(|v| v.abs() > MAX_LOSSY_MAGNITUDE);
+    let spectrum = if n > 0 && !huge {
+        fft.forward(&filled)
+    } else {
+        Vec::new()
+    };
+    let lossless = fit_lossless(values, &filled, value_type, budget_rms, spectrum.clone());
+    if !(budget_rms > 0.0) || n_finite == 0 || huge {
+        return lossless;
+    }
+    let scale = filled.iter().fold(0.0f64, |a, v| a.max(v.abs()));
+    let round_mse = value_type.rounding_mse(scale);
+    let mut best = lossless;
+    if let Some(s) = fit_samples(values, &filled, value_type, budget_rms, round_mse) {
+        if s.plan.cost_bits < best.plan.cost_bits {
+            best = Fitted {
+                spectrum: spectrum.clone(),
+                ..s
+            };
+        }
+    }
+    if let Some(f) = fit_fourier(
+        values, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, fft,
+    ) {
+        if f.plan.cost_bits < best.plan.cost_bits {
+            best = f;
+        }
+    }
+    best
+}
+
+/// The lossless representation (always meets any budget).
+fn fit_lossless(
+    values: &[f64],
+    filled: &[f64],
+    value_type: ValueType,
+    budget_rms: f64,
+    spectrum: Vec<C64>,
+) -> Fitted {
+    let finite: Vec<f64> = values.iter().copied().filter(|v| v.is_finite()).collect();
+    let (codes, raw, predicted, bits) = if value_type.is_integer() {
+        let plain: Vec<i64> = finite.iter().map(|&v| v as i64).collect();
+        let delta = delta_codes(&plain);
+        let (cp, cd) = (cost_bits(&plain), cost_bits(&delta));
+        if cd < cp {
+            (delta, Vec::new(), true, cd)
+        } else {
+            (plain, Vec::new(), false, cp)
+        }
+    } else {
+        let width = if value_type == ValueType::F32 {
+            32.0
+        } else {
+            64.0
+        };
+        let raw: Vec<u64> = finite
+            .iter()
+            .map(|&v| match value_type {
+                ValueType::F32 => (v as f32).to_bits() as u64,
+                _ => v.to_bits(),
+            })
+            .collect();
+        let bits = width * raw.len() as f64;
+        (Vec::new(), raw, false, bits)
+    };
+    Fitted {
+        plan: FitPlan {
+            basis: Basis::Lossless,
+            order: None,
+            step: 0.0,
+            predicted,
+            target_rms: 0.0,
+            budget_rms,
+            error_rms: 0.0,
+            bound_rms: 0.0,
+            cost_bits: bits + HEADER_BITS,
+        },
+        codes,
+        raw,
+        output: filled.to_vec(),
+        coeffs: Vec::new(),
+        spectrum,
+    }
+}
+
+/// First differences (the first value kept as is).
+pub fn delta_codes(q: &[i64]) -> Vec<i64> {
+    let mut prev = 0i64;
+    q.iter()
+        .map(|&v| {
+            let d = v.wrapping_sub(prev);
+            prev = v;
+            d
+        })
+        .collect()
+}
+
+/// Inverse of [`delta_codes`].
+pub fn undelta_codes(d: &[i64]) -> Vec<i64> {
+    let mut acc = 0i64;
+    d.iter()
+        .map(|&v| {
+            acc = acc.wrapping_add(v);
+            acc
+        })
+        .collect()
+}
+
+/// The error-bounded time-domain quantizer: step √12·ε (uniform quantization error has
+/// variance Δ²/12), shrunk until the output meets the budget. Also the benchmark's baseline.
+pub fn fit_samples(
+    values: &[f64],
+    filled: &[f64],
+    value_type: ValueType,
+    budget_rms: f64,
+    round_mse: f64,
+) -> Option<Fitted> {
+    let eff = budget_rms * budget_rms - round_mse;
+    if !(eff > 0.0) {
+        return None;
+    }
+    let mut step = (12.0 * eff).sqrt() as f32;
+    for _ in 0..MAX_TIGHTEN * 2 {
+        if !(step > 0.0 && step.is_finite()) {
+            return None;
+        }
+        let s = step as f64;
+        let q: Vec<i64> = filled.iter().map(|&v| (v / s).round() as i64).collect();
+        let output: Vec<f64> = q.iter().map(|&v| value_type.round(v as f64 * s)).collect();
+        let (err, bound) = measure(values, &output, None, value_type);
+        if bound <= budget_rms {
+            let delta = delta_codes(&q);
+            let (cp, cd) = (cost_bits(&q), cost_bits(&delta));
+            let (codes, predicted, bits) = if cd < cp {
+                (delta, true, cd)
+            } else {
+                (q, false, cp)
+            };
+            return Some(Fitted {
+                plan: FitPlan {
+                    basis: Basis::Samples,
+                    order: None,
+                    step,
+                    predicted,
+                    target_rms: (eff.sqrt()),
+                    budget_rms,
+                    error_rms: err,
+                    bound_rms: bound,
+                    cost_bits: bits + HEADER_BITS,
+                },
+                codes,
+                raw: Vec::new(),
+                output,
+                coeffs: Vec::new(),
+                spectrum: Vec::new(),
+            });
+        }
+        step *= 0.84;
+    }
+    None
+}
+
+/// The cheapest (step, order) on the step grid for a target energy, with or without
+/// prediction: returns (step, order, cost bits).
+pub fn choose_step_order(
+    c: &[C64],
+    pred: Option<&[C64]>,
+    n: usize,
+    target_energy: f64,
+) -> Option<(f32, usize, f64)> {
+    let m = c.len();
+    if m == 0 || !(target_energy > 0.0) {
+        return None;
+    }
+    let hi = (12.0 * target_energy).sqrt();
+    let lo = (12.0 * target_energy / (2.0 * m as f64)).sqrt() / 2.0;
+    let ratio = 2f64.powf(-1.0 / STEPS_PER_OCTAVE);
+    let mut best: Option<(f32, usize, f64)> = None;
+    let mut s = hi;
+    while s >= lo {
+        let step = s as f32;
+        let sd = step as f64;
+        if sd > 0.0 {
+            let err = error_by_order(c, pred, sd, n);
+            if let Some(l) = err.iter().position(|&e| e <= target_energy) {
+                let (codes, _) = quantize(c, pred, sd, n, l);
+                let bits = cost_bits(&codes) + HEADER_BITS;
+                if best.is_none_or(|b| bits < b.2) {
+                    best = Some((step, l, bits));
+                }
+            }
+        }
+        s *= ratio;
+    }
+    best
+}
+
+#[allow(clippy::too_many_arguments)]
+fn fit_fourier(
+    values: &[f64],
+    spectrum: &[C64],
+    n_finite: usize,
+    value_type: ValueType,
+    budget_rms: f64,
+    round_mse: f64,
+    prev: Option<&Prev>,
+    fft: &dyn Transform,
+) -> Option<Fitted> {
+    let n = values.len();
+    let m = spectrum.len();
+    let pred = prev.map(|p| predict(&p.coeffs, p.n, p.ideal, n, m));
+    let mut target2 = budget_rms * budget_rms - round_mse;
+    for _ in 0..MAX_TIGHTEN {
+        if !(target2 > 0.0) {
+            return None;
+        }
+        let energy = target2 * n_finite as f64;
+        let plain = choose_step_order(spectrum, None, n, energy);
+        let predicted = pred
+            .as_deref()
+            .and_then(|p| choose_step_order(spectrum, Some(p), n, energy));
+        let (use_pred, (step, l, bits)) = match (plain, predicted) {
+            (Some(a), Some(b)) if b.2 < a.2 => (true, b),
+            (Some(a), _) => (false, a),
+            (None, Some(b)) => (true, b),
+            (None, None) => return None,
+        };
+        let p = if use_pred { pred.as_deref() } else { None };
+        let (codes, coeffs) = quantize(spectrum, p, step as f64, n, l);
+        let (y, output) = synthesize(&coeffs, n, value_type, fft);
+        let (err, bound) = measure(values, &output, Some(&y), value_type);
+        if bound <= budget_rms {
+            return Some(Fitted {
+                plan: FitPlan {
+                    basis: Basis::Fourier,
+                    order: Some(l as u32),
+                    step,
+                    predicted: use_pred,
+                    target_rms: target2.sqrt(),
+                    budget_rms,
+                    error_rms: err,
+                    bound_rms: bound,
+                    cost_bits: bits,
+                },
+                codes,
+                raw: Vec::new(),
+                output,
+                spectrum: coeffs.clone(),
+                coeffs,
+            });
+        }
+        // Missed after rounding: aim lower, in proportion to the miss.
+        let shrink = (budget_rms / bound).powi(2).clamp(0.25, 0.9);
+        target2 *= shrink;
+    }
+    None
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::signal::RealFft;
+
+    #[test]
+    fn zigzag_round_trips_extremes() {
+        for v in [0i64, 1, -1, 63, -64, i64::MAX, i64::MIN] {
+            assert_eq!(unzigzag(zigzag(v)), v);
+        }
+    }
+
+    #[test]
+    fn delta_round_trips_with_wrapping() {
+        let q = vec![i64::MAX, i64::MIN, 0, 5, -7];
+        assert_eq!(undelta_codes(&delta_codes(&q)), q);
+    }
+
+    #[test]
+    fn budget_rounding_never_loosens_and_error_never_tightens() {
+        for b in [0.1f64, 1.0 / 3.0, 1e-30, 12345.678] {
+            assert!(budget_to_f32(b) <= b);
+            assert!(error_to_f32(b) as f64 >= b);
+        }
+    }
+
+    #[test]
+    fn zero_budget_is_lossless() {
+        let x: Vec<f64> = (0..100).map(|i| (i as f64 * 0.1).sin()).collect();
+        let f = fit_segment(
+            SegmentInput {
+                values: &x,
+                value_type: ValueType::F64,
+                budget_rms: 0.0,
+            },
+            None,
+            RealFft::shared(),
+        );
+        assert_eq!(f.plan.basis, Basis::Lossless);
+        assert_eq!(f.output, x);
+    }
+}

@@ -1,0 +1,284 @@
+//! The `cyclarc` command line: parses flags into the library's options and calls it.
+//! Exit codes: 0 success; 1 a bound is broken or an archive is damaged; 2 usage or input
+//! error; 3 a write failed; 4 interrupted.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Args, Parser, Subcommand};
+
+use cyclarc::error::Error;
+use cyclarc::job::{decode_file, encode_file, JobControl};
+use cyclarc::options::{EncodeOptions, Layout};
+use cyclarc::signal::RealFft;
+use cyclarc::{archive, pipeline, report, verify};
+
+#[derive(Parser)]
+#[command(
+    name = "cyclarc",
+    version,
+    about = "Archive periodic sensor logs as truncated Fourier series with a verified RMS error bound"
+)]
+struct Cli {
+    /// Worker threads (default: all cores). The archive is the same for any count.
+    #[arg(long, global = true)]
+    threads: Option<usize>,
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Subcommand)]
+enum Command {
+    /// Encode a Parquet source into an archive.
+    Encode(EncodeArgs),
+    /// Decode an archive back to Parquet in the source's layout.
+    Decode {
+        /// The archive.
+        archive: PathBuf,
+        /// Output Parquet file.
+        #[arg(long)]
+        out: PathBuf,
+        /// Only these channels (repeatable).
+        #[arg(long = "channel")]
+        channels: Vec<String>,
+        /// Keep samples at or after this time (RFC 3339, or integer ns since the epoch).
+        #[arg(long)]
+        from: Option<String>,
+        /// Keep samples before this time (RFC 3339, or integer ns since the epoch).
+        #[arg(long)]
+        to: Option<String>,
+        /// Print a JSON summary on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Check an archive against its source: every segment within budget, every checksum good.
+    Verify {
+        /// The archive.
+        archive: PathBuf,
+        /// The source it was made from.
+        #[arg(long)]
+        source: PathBuf,
+        /// Print the report as JSON on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Show what an archive holds, per channel.
+    Inspect {
+        /// The archive.
+        archive: PathBuf,
+        /// Print as JSON on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Run a pipeline file (pipelines/*.toml).
+    Run {
+        /// The pipeline file.
+        pipeline: PathBuf,
+        /// Print the run report as JSON on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+}
+
+#[derive(Args)]
+struct EncodeArgs {
+    /// The Parquet source.
+    source: PathBuf,
+    /// The archive to write.
+    #[arg(long)]
+    out: PathBuf,
+    /// Absolute RMS budget per segment, in the channel's units (0 = lossless).
+    #[arg(long, conflicts_with = "budget_rel", allow_negative_numbers = true)]
+    budget_rms: Option<f64>,
+    /// Relative budget: a fraction of each segment's RMS (default 0.005).
+    #[arg(long, allow_negative_numbers = true)]
+    budget_rel: Option<f64>,
+    /// Absolute floor under a relative budget (channel units; default 0).
+    #[arg(long, requires = "budget_rel", allow_negative_numbers = true)]
+    budget_floor: Option<f64>,
+    /// Fundamental frequency in Hz (used as is, no tracking).
+    #[arg(long, conflicts_with = "fundamental")]
+    fundamental_hz: Option<f64>,
+    /// `auto` (estimate and track; the default) or `none` (fixed-length segments).
+    #[arg(long)]
+    fundamental: Option<String>,
+    /// Whole cycles per segment (default: fewest spanning 200 ms).
+    #[arg(long)]
+    cycles_per_segment: Option<u32>,
+    /// Source layout (default: detected).
+    #[arg(long, value_enum)]
+    layout: Option<Layout>,
+    /// Time column (default `time`).
+    #[arg(long)]
+    time_column: Option<String>,
+    /// Channel column, long layout (default `channel`).
+    #[arg(long)]
+    channel_column: Option<String>,
+    /// Value column, long layout (default `value`).
+    #[arg(long)]
+    value_column: Option<String>,
+    /// Only these channels (comma-separated).
+    #[arg(long, value_delimiter = ',')]
+    channels: Option<Vec<String>>,
+    /// Sample rate in Hz (default: from the timestamps' median step).
+    #[arg(long)]
+    sample_rate_hz: Option<f64>,
+    /// zstd level for blocks, 1–22 (default 19).
+    #[arg(long)]
+    zstd_level: Option<i32>,
+    /// Print a JSON summary on stdout.
+    #[arg(long)]
+    json: bool,
+}
+
+impl EncodeArgs {
+    fn options(&self) -> EncodeOptions {
+        EncodeOptions {
+            budget_rms: self.budget_rms,
+            budget_rel: self.budget_rel,
+            budget_floor: self.budget_floor,
+            fundamental: self
+                .fundamental_hz
+                .map(|f| f.to_string())
+                .or_else(|| self.fundamental.clone()),
+            cycles_per_segment: self.cycles_per_segment,
+            layout: self.layout,
+            time_column: self.time_column.clone(),
+            channel_column: self.channel_column.clone(),
+            value_column: self.value_column.clone(),
+            channels: self.channels.clone(),
+            sample_rate_hz: self.sample_rate_hz,
+            zstd_level: self.zstd_level,
+            ..Default::default()
+        }
+    }
+}
+
+fn parse_time(s: &str, flag: &str) -> Result<i64, Error> {
+    if let Ok(ns) = s.trim().parse::<i64>() {
+        return Ok(ns);
+    }
+    arrow::compute::kernels::cast_utils::string_to_timestamp_nanos(s.trim()).map_err(|e| {
+        Error::InvalidOption {
+            name: flag.into(),
+            reason: format!("`{s}` is not an RFC 3339 time or integer ns: {e}"),
+        }
+    })
+}
+
+fn print_json<T: serde::Serialize>(v: &T) {
+    match serde_json::to_string_pretty(v) {
+        Ok(s) => println!("{s}"),
+        Err(e) => eprintln!("cyclarc: cannot render JSON: {e}"),
+    }
+}
+
+fn run(cli: Cli) -> Result<i32, Error> {
+    let control = JobControl { progress: true };
+    match cli.command {
+        Command::Encode(a) => {
+            let settings = a.options().resolve()?;
+            let s = encode_file(&a.source, &a.out, &settings, &control)?;
+            if a.json {
+                print_json(&s);
+            } else {
+                eprint!("{}", report::encode_text(&s));
+            }
+            Ok(0)
+        }
+        Command::Decode {
+            archive,
+            out,
+            channels,
+            from,
+            to,
+            json,
+        } => {
+            let from = from.map(|s| parse_time(&s, "from")).transpose()?;
+            let to = to.map(|s| parse_time(&s, "to")).transpose()?;
+            let s = decode_file(&archive, &out, &channels, from, to)?;
+            if json {
+                print_json(&s);
+            } else {
+                eprintln!(
+                    "{} → {}: {} rows, {} channels",
+                    s.archive.display(),
+                    s.out.display(),
+                    s.rows,
+                    s.channels
+                );
+            }
+            Ok(0)
+        }
+        Command::Verify {
+            archive,
+            source,
+            json,
+        } => {
+            let r = verify::verify(&archive, &source, RealFft::shared())?;
+            if json {
+                print_json(&r);
+            } else {
+                print!("{}", report::verify_text(&r));
+            }
+            Ok(if r.passed() { 0 } else { 1 })
+        }
+        Command::Inspect { archive, json } => {
+            let a = archive::read_archive(&archive)?;
+            let i = report::inspect(&a);
+            if json {
+                print_json(&i);
+            } else {
+                print!("{}", report::inspect_text(&i));
+            }
+            Ok(0)
+        }
+        Command::Run { pipeline, json } => {
+            let r = pipeline::run(&pipeline, &control)?;
+            if json {
+                print_json(&r);
+            }
+            for s in &r.sources {
+                match s {
+                    pipeline::SourceOutcome::Archived {
+                        summary, verified, ..
+                    } => {
+                        eprint!("{}", report::encode_text(summary));
+                        if let Some(v) = verified {
+                            eprintln!("  verify: {}", if *v { "pass" } else { "FAIL" });
+                        }
+                    }
+                    pipeline::SourceOutcome::Skipped { source, archive } => eprintln!(
+                        "{}: already archived as {} with the same settings; skipped",
+                        source.display(),
+                        archive.display()
+                    ),
+                    pipeline::SourceOutcome::Failed { error, .. } => {
+                        eprintln!("cyclarc: {error}")
+                    }
+                }
+            }
+            Ok(r.exit_code())
+        }
+    }
+}
+
+fn main() -> ExitCode {
+    let cli = Cli::parse();
+    if let Some(n) = cli.threads {
+        if let Err(e) = rayon::ThreadPoolBuilder::new()
+            .num_threads(n.max(1))
+            .build_global()
+        {
+            eprintln!("cyclarc: cannot set up {n} threads: {e}");
+            return ExitCode::from(2);
+        }
+    }
+    match run(cli) {
+        Ok(code) => ExitCode::from(code as u8),
+        Err(e) => {
+            eprintln!("cyclarc: {e}");
+            ExitCode::from(e.exit_code() as u8)
+        }
+    }
+}

@@ -1,0 +1,393 @@
+//! Options: the one job specification, filled by command-line flags and by the `[encode]`
+//! table of `pipelines/*.toml` through the same serde type, and validated once into the
+//! resolved [`Settings`] the stages use.
+//!
+//! Does not: touch files.
+
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::segment::{
+    FundamentalSetting, SegmentSettings, DEFAULT_FALLBACK_SEGMENT_SECONDS, DEFAULT_MIN_CONFIDENCE,
+    DEFAULT_MIN_SEGMENT_SECONDS,
+};
+
+/// Default zstd level for blocks.
+pub const DEFAULT_ZSTD_LEVEL: i32 = 19;
+
+/// Default most segments per block.
+pub const DEFAULT_BLOCK_SEGMENTS: usize = 256;
+
+/// Default most samples per block.
+pub const DEFAULT_BLOCK_SAMPLES: usize = 1 << 18;
+
+/// Default relative budget when none is given: 0.5 % of each segment's RMS.
+pub const DEFAULT_BUDGET_REL: f64 = 0.005;
+
+/// Source layout.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
+#[serde(rename_all = "lowercase")]
+pub enum Layout {
+    /// One row per sample: time, channel, value.
+    Long,
+    /// One row per time: time plus one numeric column per channel.
+    Wide,
+}
+
+/// A budget as written by the user (exactly one of `rms` and `rel`).
+#[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BudgetSpec {
+    /// Absolute RMS budget in channel units.
+    pub rms: Option<f64>,
+    /// Relative budget: fraction of each segment's RMS.
+    pub rel: Option<f64>,
+    /// Absolute floor under a relative budget (channel units). Default 0.
+    pub floor: Option<f64>,
+}
+
+/// A resolved budget rule.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub enum Budget {
+    /// ε = value (channel units).
+    Absolute(f64),
+    /// ε = max(fraction · segment RMS, floor).
+    Relative {
+        /// Fraction of the segment RMS.
+        fraction: f64,
+        /// Absolute floor.
+        floor: f64,
+    },
+}
+
+impl Budget {
+    /// The budget of a segment with the given RMS, rounded down to f32.
+    pub fn resolve(&self, segment_rms: f64) -> f64 {
+        let b = match *self {
+            Budget::Absolute(b) => b,
+            Budget::Relative { fraction, floor } => (fraction * segment_rms).max(floor),
+        };
+        crate::fit::budget_to_f32(if b.is_finite() { b } else { 0.0 })
+    }
+}
+
+impl BudgetSpec {
+    /// Validate into a [`Budget`]; `None` when neither `rms` nor `rel` is set.
+    pub fn resolve(&self, name: &str) -> Result<Option<Budget>> {
+        let check = |what: &str, v: f64| -> Result<f64> {
+            if v.is_finite() && v >= 0.0 {
+                Ok(v)
+            } else {
+                Err(Error::InvalidOption {
+                    name: format!("{name}{what}"),
+                    reason: format!("must be a finite number ≥ 0, got {v}"),
+                })
+            }
+        };
+        match (self.rms, self.rel) {
+            (Some(_), Some(_)) => Err(Error::InvalidOption {
+                name: name.to_string(),
+                reason: "give either an absolute (rms) or a relative (rel) budget, not both".into(),
+            }),
+            (Some(r), None) => {
+                if self.floor.is_some() {
+                    return Err(Error::InvalidOption {
+                        name: format!("{name}floor"),
+                        reason: "a floor applies to relative budgets only".into(),
+                    });
+                }
+                Ok(Some(Budget::Absolute(check("rms", r)?)))
+            }
+            (None, Some(f)) => Ok(Some(Budget::Relative {
+                fraction: check("rel", f)?,
+                floor: check("floor", self.floor.unwrap_or(0.0))?,
+            })),
+            (None, None) => {
+                if self.floor.is_some() {
+                    return Err(Error::InvalidOption {
+                        name: format!("{name}floor"),
+                        reason: "a floor needs a relative budget".into(),
+                    });
+                }
+                Ok(None)
+            }
+        }
+    }
+}
+
+/// A per-channel budget: channels whose name matches the glob pattern get this budget.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BudgetRule {
+    /// Glob pattern over channel names (`*`, `?`, `[…]`).
+    pub channels: String,
+    /// Absolute RMS budget.
+    pub rms: Option<f64>,
+    /// Relative budget.
+    pub rel: Option<f64>,
+    /// Floor under a relative budget.
+    pub floor: Option<f64>,
+}
+
+/// The job specification (flags and pipeline files fill this same type).
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct EncodeOptions {
+    /// Absolute RMS budget (channel units). Default: none (relative 0.5 %).
+    pub budget_rms: Option<f64>,
+    /// Relative budget (fraction of segment RMS). Default 0.005 when no budget is given.
+    pub budget_rel: Option<f64>,
+    /// Floor under a relative budget. Default 0.
+    pub budget_floor: Option<f64>,
+    /// Per-channel budgets; the first matching rule wins over the default budget.
+    pub budgets: Vec<BudgetRule>,
+    /// "auto" (default), "none", or a frequency in Hz.
+    pub fundamental: Option<String>,
+    /// Whole cycles per segment. Default: fewest spanning 200 ms.
+    pub cycles_per_segment: Option<u32>,
+    /// Source layout. Default: detected.
+    pub layout: Option<Layout>,
+    /// Time column. Default `time`.
+    pub time_column: Option<String>,
+    /// Channel column (long layout). Default `channel`.
+    pub channel_column: Option<String>,
+    /// Value column (long layout). Default `value`.
+    pub value_column: Option<String>,
+    /// Only these channels. Default: all.
+    pub channels: Option<Vec<String>>,
+    /// Sample rate in Hz. Default: from the timestamps (median step).
+    pub sample_rate_hz: Option<f64>,
+    /// zstd level of blocks (1–22). Default 19.
+    pub zstd_level: Option<i32>,
+    /// Most segments per block. Default 256.
+    pub block_segments: Option<usize>,
+}
+
+/// Validated settings for the stages.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct Settings {
+    /// Default budget.
+    pub budget: Budget,
+    /// Per-channel rules (pattern, budget), first match wins.
+    pub budget_rules: Vec<(String, Budget)>,
+    /// Fundamental.
+    pub fundamental: FundamentalSetting,
+    /// Cycles per segment.
+    pub cycles_per_segment: Option<u32>,
+    /// Layout (None: detect).
+    pub layout: Option<Layout>,
+    /// Time column.
+    pub time_column: String,
+    /// Channel column.
+    pub channel_column: String,
+    /// Value column.
+    pub value_column: String,
+    /// Channel filter.
+    pub channels: Option<Vec<String>>,
+    /// Sample rate override.
+    pub sample_rate_hz: Option<f64>,
+    /// zstd level.
+    pub zstd_level: i32,
+    /// Most segments per block.
+    pub block_segments: usize,
+    /// Most samples per block.
+    pub block_samples: usize,
+}
+
+impl EncodeOptions {
+    /// Merge: values set in `over` replace those in `self`.
+    pub fn overlay(&self, over: &EncodeOptions) -> EncodeOptions {
+        macro_rules! pick {
+            ($($f:ident),*) => { EncodeOptions { $($f: over.$f.clone().or_else(|| self.$f.clone()),)*
+                budgets: if over.budgets.is_empty() { self.budgets.clone() } else { over.budgets.clone() } } };
+        }
+        let mut o = pick!(
+            budget_rms,
+            budget_rel,
+            budget_floor,
+            fundamental,
+            cycles_per_segment,
+            layout,
+            time_column,
+            channel_column,
+            value_column,
+            channels,
+            sample_rate_hz,
+            zstd_level,
+            block_segments
+        );
+        // An absolute budget given on top replaces a relative one, and vice versa.
+        if over.budget_rms.is_some() {
+            o.budget_rel = None;
+            o.budget_floor = None;
+        } else if over.budget_rel.is_some() {
+            o.budget_rms = None;
+        }
+        o
+    }
+
+    /// Validate into [`Settings`].
+    pub fn resolve(&self) -> Result<Settings> {
+        let spec = BudgetSpec {
+            rms: self.budget_rms,
+            rel: self.budget_rel,
+            floor: self.budget_floor,
+        };
+        let budget = spec.resolve("budget-")?.unwrap_or(Budget::Relative {
+            fraction: DEFAULT_BUDGET_REL,
+            floor: 0.0,
+        });
+        let mut budget_rules = Vec::new();
+        for r in &self.budgets {
+            glob::Pattern::new(&r.channels).map_err(|e| Error::InvalidOption {
+                name: "budgets.channels".into(),
+                reason: format!("`{}`: {e}", r.channels),
+            })?;
+            let b = BudgetSpec {
+                rms: r.rms,
+                rel: r.rel,
+                floor: r.floor,
+            }
+            .resolve("budgets.")?
+            .ok_or_else(|| Error::InvalidOption {
+                name: "budgets".into(),
+                reason: format!("rule for `{}` sets neither rms nor rel", r.channels),
+            })?;
+            budget_rules.push((r.channels.clone(), b));
+        }
+        let fundamental = match self.fundamental.as_deref().map(str::trim) {
+            None | Some("auto") => FundamentalSetting::Auto,
+            Some("none") => FundamentalSetting::None,
+            Some(s) => {
+                let hz: f64 = s.parse().map_err(|_| Error::InvalidOption {
+                    name: "fundamental".into(),
+                    reason: format!("`{s}` is not `auto`, `none` or a frequency in Hz"),
+                })?;
+                if !(hz.is_finite() && hz > 0.0) {
+                    return Err(Error::InvalidOption {
+                        name: "fundamental".into(),
+                        reason: format!("frequency must be > 0 Hz, got {hz}"),
+                    });
+                }
+                FundamentalSetting::Hz(hz)
+            }
+        };
+        if self.cycles_per_segment == Some(0) {
+            return Err(Error::InvalidOption {
+                name: "cycles-per-segment".into(),
+                reason: "must be at least 1".into(),
+            });
+        }
+        if let Some(fs) = self.sample_rate_hz {
+            if !(fs.is_finite() && fs > 0.0) {
+                return Err(Error::InvalidOption {
+                    name: "sample-rate-hz".into(),
+                    reason: format!("must be > 0, got {fs}"),
+                });
+            }
+        }
+        let zstd_level = self.zstd_level.unwrap_or(DEFAULT_ZSTD_LEVEL);
+        if !(1..=22).contains(&zstd_level) {
+            return Err(Error::InvalidOption {
+                name: "zstd-level".into(),
+                reason: format!("must be 1 … 22, got {zstd_level}"),
+            });
+        }
+        let block_segments = self.block_segments.unwrap_or(DEFAULT_BLOCK_SEGMENTS);
+        if block_segments == 0 {
+            return Err(Error::InvalidOption {
+                name: "block-segments".into(),
+                reason: "must be at least 1".into(),
+            });
+        }
+        Ok(Settings {
+            budget,
+            budget_rules,
+            fundamental,
+            cycles_per_segment: self.cycles_per_segment,
+            layout: self.layout,
+            time_column: self.time_column.clone().unwrap_or_else(|| "time".into()),
+            channel_column: self
+                .channel_column
+                .clone()
+                .unwrap_or_else(|| "channel".into()),
+            value_column: self.value_column.clone().unwrap_or_else(|| "value".into()),
+            channels: self.channels.clone(),
+            sample_rate_hz: self.sample_rate_hz,
+            zstd_level,
+            block_segments,
+            block_samples: DEFAULT_BLOCK_SAMPLES,
+        })
+    }
+}
+
+impl Settings {
+    /// The budget for a channel: the first matching rule, else the default.
+    pub fn budget_for(&self, channel: &str) -> Budget {
+        self.budget_rules
+            .iter()
+            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
+            .map_or(self.budget, |(_, b)| *b)
+    }
+
+    /// Segmentation settings for a sample rate.
+    pub fn segment_settings(&self, sample_rate: f64) -> SegmentSettings {
+        SegmentSettings {
+            sample_rate,
+            fundamental: self.fundamental,
+            cycles_per_segment: self.cycles_per_segment,
+            min_segment_seconds: DEFAULT_MIN_SEGMENT_SECONDS,
+            fallback_segment_seconds: DEFAULT_FALLBACK_SEGMENT_SECONDS,
+            min_confidence: DEFAULT_MIN_CONFIDENCE,
+        }
+    }
+
+    /// The settings that change the archive's bytes, as a stable string (for the manifest
+    /// and the archive metadata).
+    pub fn fingerprint(&self) -> String {
+        serde_json::to_string(self).unwrap_or_default()
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn negative_and_nan_budgets_are_refused() {
+        for v in [-1.0, f64::NAN, f64::INFINITY] {
+            let o = EncodeOptions {
+                budget_rms: Some(v),
+                ..Default::default()
+            };
+            assert!(o.resolve().is_err(), "{v}");
+        }
+    }
+
+    #[test]
+    fn both_budget_kinds_at_once_are_refused() {
+        let o = EncodeOptions {
+            budget_rms: Some(1.0),
+            budget_rel: Some(0.01),
+            ..Default::default()
+        };
+        assert!(o.resolve().is_err());
+    }
+
+    #[test]
+    fn first_matching_rule_wins() {
+        let o = EncodeOptions {
+            budget_rms: Some(1.0),
+            budgets: vec![BudgetRule {
+                channels: "p201.*".into(),
+                rms: Some(0.5),
+                rel: None,
+                floor: None,
+            }],
+            ..Default::default()
+        };
+        let s = o.resolve().unwrap();
+        assert_eq!(s.budget_for("p201.de"), Budget::Absolute(0.5));
+        assert_eq!(s.budget_for("p202.de"), Budget::Absolute(1.0));
+    }
+}

@@ -1,0 +1,581 @@
+//! Read: scan a Parquet source by record batches (64k rows), map its columns to the long
+//! (`time`, `channel`, `value`) or wide (`time` plus one numeric column per channel) layout,
+//! and convert times to epoch nanoseconds and values to f64 with the non-finite and null
+//! values kept exactly aside.
+//!
+//! Does not: sort, split into runs or judge the data (that is `assemble`).
+
+use std::collections::HashMap;
+use std::fs::File;
+use std::path::{Path, PathBuf};
+
+use arrow::array::{Array, ArrayRef, AsArray};
+use arrow::datatypes::{
+    DataType, Float32Type, Float64Type, Int16Type, Int32Type, Int64Type, TimeUnit,
+    TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
+    TimestampSecondType,
+};
+use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
+use parquet::arrow::ProjectionMask;
+use serde::{Deserialize, Serialize};
+
+use crate::error::{Error, Result};
+use crate::options::{Layout, Settings};
+use crate::pack::SpecialKind;
+use crate::signal::ValueType;
+
+/// Rows per record batch when scanning (the parquet crate's default of 1024 is slow).
+pub const READ_BATCH_ROWS: usize = 65_536;
+
+/// How the source stores time.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(tag = "kind", rename_all = "lowercase")]
+pub enum TimeType {
+    /// Arrow Timestamp with a unit (`s`, `ms`, `us`, `ns`) and optional zone.
+    Timestamp {
+        /// Unit.
+        unit: String,
+        /// Time zone, if any.
+        tz: Option<String>,
+    },
+    /// Int64 epoch nanoseconds.
+    Int64Nanos,
+}
+
+impl TimeType {
+    /// Nanoseconds per unit.
+    pub fn nanos_per_unit(&self) -> i64 {
+        match self {
+            TimeType::Timestamp { unit, .. } => match unit.as_str() {
+                "s" => 1_000_000_000,
+                "ms" => 1_000_000,
+                "us" => 1_000,
+                _ => 1,
+            },
+            TimeType::Int64Nanos => 1,
+        }
+    }
+
+    /// The Arrow type.
+    pub fn data_type(&self) -> DataType {
+        match self {
+            TimeType::Timestamp { unit, tz } => DataType::Timestamp(
+                match unit.as_str() {
+                    "s" => TimeUnit::Second,
+                    "ms" => TimeUnit::Millisecond,
+                    "us" => TimeUnit::Microsecond,
+                    _ => TimeUnit::Nanosecond,
+                },
+                tz.as_deref().map(Into::into),
+            ),
+            TimeType::Int64Nanos => DataType::Int64,
+        }
+    }
+}
+
+/// How the source stores channel names (long layout).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+pub enum NameType {
+    /// Utf8.
+    Utf8,
+    /// LargeUtf8.
+    LargeUtf8,
+    /// Dictionary-encoded Utf8 (Int32 keys).
+    Dictionary,
+}
+
+/// One channel of the source.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct ChannelInfo {
+    /// Name (column name in the wide layout).
+    pub name: String,
+    /// Value type.
+    pub value_type: ValueType,
+}
+
+/// What the decoder needs to write the source's layout back.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SourceSchema {
+    /// Layout.
+    pub layout: Layout,
+    /// Time column name.
+    pub time_column: String,
+    /// Time type.
+    pub time_type: TimeType,
+    /// Channel column (long).
+    pub channel_column: Option<String>,
+    /// Channel column type (long).
+    pub name_type: Option<NameType>,
+    /// Value column (long).
+    pub value_column: Option<String>,
+    /// Channels in source order (wide: column order; long: order of first appearance).
+    pub channels: Vec<ChannelInfo>,
+}
+
+/// Samples of one channel from one batch, in source row order.
+#[derive(Debug, Default, Clone)]
+pub struct ChannelChunk {
+    /// Index into [`SourceSchema::channels`].
+    pub channel: usize,
+    /// Times (ns since the epoch).
+    pub times: Vec<i64>,
+    /// Values (non-finite and null positions hold NaN).
+    pub values: Vec<f64>,
+    /// Source row (0-based, over the whole file) of each sample.
+    pub rows: Vec<u64>,
+    /// Non-finite and null values: (index into this chunk, kind).
+    pub specials: Vec<(usize, SpecialKind)>,
+}
+
+/// A Parquet source being scanned.
+pub struct Source {
+    /// Path.
+    pub path: PathBuf,
+    /// Schema mapping.
+    pub schema: SourceSchema,
+    reader: ParquetRecordBatchReader,
+    time_idx: usize,
+    channel_idx: Option<usize>,
+    value_idx: Vec<(usize, usize)>,
+    names: HashMap<String, usize>,
+    wanted: Option<Vec<String>>,
+    long_vt: ValueType,
+    row: u64,
+    /// Rows in the file.
+    pub total_rows: u64,
+}
+
+fn value_type_of(dt: &DataType) -> Option<ValueType> {
+    Some(match dt {
+        DataType::Float64 => ValueType::F64,
+        DataType::Float32 => ValueType::F32,
+        DataType::Int16 => ValueType::I16,
+        DataType::Int32 => ValueType::I32,
+        _ => return None,
+    })
+}
+
+fn time_type_of(dt: &DataType) -> Option<TimeType> {
+    match dt {
+        DataType::Timestamp(u, tz) => Some(TimeType::Timestamp {
+            unit: match u {
+                TimeUnit::Second => "s",
+                TimeUnit::Millisecond => "ms",
+                TimeUnit::Microsecond => "us",
+                TimeUnit::Nanosecond => "ns",
+            }
+            .into(),
+            tz: tz.as_ref().map(|s| s.to_string()),
+        }),
+        DataType::Int64 => Some(TimeType::Int64Nanos),
+        _ => None,
+    }
+}
+
+fn name_type_of(dt: &DataType) -> Option<NameType> {
+    match dt {
+        DataType::Utf8 => Some(NameType::Utf8),
+        DataType::LargeUtf8 => Some(NameType::LargeUtf8),
+        DataType::Dictionary(_, v) if matches!(**v, DataType::Utf8 | DataType::LargeUtf8) => {
+            Some(NameType::Dictionary)
+        }
+        _ => None,
+    }
+}
+
+/// Open a Parquet file, turning the reader's panics on damaged input into errors.
+pub fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
+    let file = File::open(path).map_err(|e| Error::Open {
+        file: path.to_path_buf(),
+        source: e,
+    })?;
+    if file.metadata().map(|m| m.is_dir()).unwrap_or(false) {
+        return Err(Error::Open {
+            file: path.to_path_buf(),
+            source: std::io::Error::other("is a directory"),
+        });
+    }
+    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
+        ParquetRecordBatchReaderBuilder::try_new(file)
+    }));
+    match r {
+        Ok(Ok(b)) => Ok(b),
+        Ok(Err(e)) => Err(Error::NotParquet {
+            file: path.to_path_buf(),
+            reason: e.to_string(),
+        }),
+        Err(_) => Err(Error::NotParquet {
+            file: path.to_path_buf(),
+            reason: "the Parquet reader failed on damaged metadata".into(),
+        }),
+    }
+}
+
+impl Source {
+    /// Open a source and map its columns according to the settings.
+    pub fn open(path: &Path, settings: &Settings) -> Result<Source> {
+        let builder = open_parquet(path)?;
+        let file = path.to_path_buf();
+        let arrow_schema = builder.schema().clone();
+        let total_rows = builder.metadata().file_metadata().num_rows().max(0) as u64;
+        let fields = arrow_schema.fields();
+        let available = fields
+            .iter()
+            .map(|f| format!("{} ({})", f.name(), f.data_type()))
+            .collect::<Vec<_>>()
+            .join(", ");
+        let find = |name: &str| fields.iter().position(|f| f.name() == name);
+        let time_idx = find(&settings.time_column).ok_or_else(|| Error::MissingColumn {
+            file: file.clone(),
+            column: settings.time_column.clone(),
+            available: available.clone(),
+        })?;
+        let time_type =
+            time_type_of(fields[time_idx].data_type()).ok_or_else(|| Error::WrongType {
+                file: file.clone(),
+                column: settings.time_column.clone(),
+                found: fields[time_idx].data_type().to_string(),
+                expected: "Timestamp (any unit, with or without zone) or Int64 epoch ns".into(),
+            })?;
+        let channel_col = find(&settings.channel_column);
+        let value_col = find(&settings.value_column);
+        let numeric: Vec<usize> = (0..fields.len())
+            .filter(|&i| i != time_idx && Some(i) != channel_col)
+            .filter(|&i| value_type_of(fields[i].data_type()).is_some())
+            .collect();
+        let layout = match settings.layout {
+            Some(l) => l,
+            None => match (channel_col, value_col) {
+                (Some(_), Some(_)) => Layout::Long,
+                (None, _) if !numeric.is_empty() => Layout::Wide,
+                (Some(_), None) => {
+                    return Err(Error::Layout {
+                        file,
+                        reason: format!(
+                            "has a `{}` column but no `{}` column; name the value column \
+                             (--value-column) or pass --layout wide",
+                            settings.channel_column, settings.value_column
+                        ),
+                    })
+                }
+                _ => {
+                    return Err(Error::Layout {
+                        file,
+                        reason: format!(
+                            "cannot tell the layout: no numeric value columns besides the time \
+                             (columns: {available})"
+                        ),
+                    })
+                }
+            },
+        };
+        let mut source_schema = SourceSchema {
+            layout,
+            time_column: settings.time_column.clone(),
+            time_type,
+            channel_column: None,
+            name_type: None,
+            value_column: None,
+            channels: Vec::new(),
+        };
+        let mut value_idx = Vec::new();
+        let mut long_vt = ValueType::F64;
+        let mut projection = vec![time_idx];
+        let channel_idx = match layout {
+            Layout::Long => {
+                let ci = channel_col.ok_or_else(|| Error::MissingColumn {
+                    file: file.clone(),
+                    column: settings.channel_column.clone(),
+                    available: available.clone(),
+                })?;
+                let vi = value_col.ok_or_else(|| Error::MissingColumn {
+                    file: file.clone(),
+                    column: settings.value_column.clone(),
+                    available: available.clone(),
+                })?;
+                let nt = name_type_of(fields[ci].data_type()).ok_or_else(|| Error::WrongType {
+                    file: file.clone(),
+                    column: settings.channel_column.clone(),
+                    found: fields[ci].data_type().to_string(),
+                    expected: "Utf8, LargeUtf8 or Dictionary(Utf8)".into(),
+                })?;
+                let vt = value_type_of(fields[vi].data_type()).ok_or_else(|| Error::WrongType {
+                    file: file.clone(),
+                    column: settings.value_column.clone(),
+                    found: fields[vi].data_type().to_string(),
+                    expected: "Float64, Float32, Int16 or Int32".into(),
+                })?;
+                source_schema.channel_column = Some(settings.channel_column.clone());
+                source_schema.name_type = Some(nt);
+                source_schema.value_column = Some(settings.value_column.clone());
+                projection.push(ci);
+                projection.push(vi);
+                value_idx.push((vi, 0));
+                long_vt = vt;
+                Some(ci)
+            }
+            Layout::Wide => {
+                let wanted: Vec<usize> = match &settings.channels {
+                    Some(list) => list
+                        .iter()
+                        .map(|c| {
+                            find(c).ok_or_else(|| Error::MissingColumn {
+                                file: file.clone(),
+                                column: c.clone(),
+                                available: available.clone(),
+                            })
+                        })
+                        .collect::<Result<_>>()?,
+                    None => numeric.clone(),
+                };
+                if wanted.is_empty() {
+                    return Err(Error::Layout {
+                        file,
+                        reason: format!("no numeric channel columns (columns: {available})"),
+                    });
+                }
+                for &i in &wanted {
+                    let vt =
+                        value_type_of(fields[i].data_type()).ok_or_else(|| Error::WrongType {
+                            file: file.clone(),
+                            column: fields[i].name().clone(),
+                            found: fields[i].data_type().to_string(),
+                            expected: "Float64, Float32, Int16 or Int32".into(),
+                        })?;
+                    value_idx.push((i, source_schema.channels.len()));
+                    source_schema.channels.push(ChannelInfo {
+                        name: fields[i].name().clone(),
+                        value_type: vt,
+                    });
+                    projection.push(i);
+                }
+                None
+            }
+        };
+        // Column positions after projection keep the file's order.
+        let mut sorted = projection.clone();
+        sorted.sort_unstable();
+        sorted.dedup();
+        let pos = |i: usize| sorted.iter().position(|&j| j == i).unwrap_or(0);
+        let mask = ProjectionMask::roots(builder.parquet_schema(), sorted.iter().copied());
+        let reader = builder
+            .with_projection(mask)
+            .with_batch_size(READ_BATCH_ROWS)
+            .build()
+            .map_err(|e| Error::NotParquet {
+                file: file.clone(),
+                reason: e.to_string(),
+            })?;
+        let value_idx = value_idx
+            .into_iter()
+            .map(|(col, ch)| (pos(col), ch))
+            .collect();
+        Ok(Source {
+            path: file,
+            schema: source_schema,
+            reader,
+            time_idx: pos(time_idx),
+            channel_idx: channel_idx.map(pos),
+            value_idx,
+            names: HashMap::new(),
+            wanted: if layout == Layout::Long {
+                settings.channels.clone()
+            } else {
+                None
+            },
+            long_vt,
+            row: 0,
+            total_rows,
+        })
+    }
+
+    /// Read the next batch, split by channel. `None` at the end of the file.
+    pub fn next_chunks(&mut self) -> Option<Result<Vec<ChannelChunk>>> {
+        let next = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| self.reader.next()));
+        let batch = match next {
+            Ok(None) => return None,
+            Ok(Some(Ok(b))) => b,
+            Ok(Some(Err(e))) => {
+                return Some(Err(Error::NotParquet {
+                    file: self.path.clone(),
+                    reason: e.to_string(),
+                }))
+            }
+            Err(_) => {
+                return Some(Err(Error::NotParquet {
+                    file: self.path.clone(),
+                    reason: format!("the Parquet reader failed near row {}", self.row),
+                }))
+            }
+        };
+        let first_row = self.row;
+        self.row += batch.num_rows() as u64;
+        Some(self.split(batch, first_row))
+    }
+
+    fn split(
+        &mut self,
+        batch: arrow::record_batch::RecordBatch,
+        first_row: u64,
+    ) -> Result<Vec<ChannelChunk>> {
+        let times = self.times(batch.column(self.time_idx), first_row)?;
+        match self.channel_idx {
+            Some(ci) => {
+                let names =
+                    arrow::compute::cast(batch.column(ci), &DataType::Utf8).map_err(|e| {
+                        Error::NotParquet {
+                            file: self.path.clone(),
+                            reason: e.to_string(),
+                        }
+                    })?;
+                let names = names.as_string::<i32>();
+                let vt = self.long_vt;
+                let values = batch.column(self.value_idx[0].0).clone();
+                let mut chunks: Vec<ChannelChunk> = Vec::new();
+                let mut slot: HashMap<usize, usize> = HashMap::new();
+                for (i, &t) in times.iter().enumerate() {
+                    if names.is_null(i) {
+                        return Err(Error::NullChannel {
+                            file: self.path.clone(),
+                            column: self.schema.channel_column.clone().unwrap_or_default(),
+                            row: first_row + i as u64,
+                        });
+                    }
+                    let name = names.value(i);
+                    if let Some(w) = &self.wanted {
+                        if !w.iter().any(|c| c == name) {
+                            continue;
+                        }
+                    }
+                    let ch = match self.names.get(name) {
+                        Some(&c) => c,
+                        None => {
+                            let c = self.schema.channels.len();
+                            self.schema.channels.push(ChannelInfo {
+                                name: name.to_string(),
+                                value_type: vt,
+                            });
+                            self.names.insert(name.to_string(), c);
+                            c
+                        }
+                    };
+                    let s = *slot.entry(ch).or_insert_with(|| {
+                        chunks.push(ChannelChunk {
+                            channel: ch,
+                            ..Default::default()
+                        });
+                        chunks.len() - 1
+                    });
+                    let chunk = &mut chunks[s];
+                    push_value(chunk, &values, i, vt);
+                    chunk.times.push(t);
+                    chunk.rows.push(first_row + i as u64);
+                }
+                Ok(chunks)
+            }
+            None => {
+                let mut chunks = Vec::with_capacity(self.value_idx.len());
+                for &(col, ch) in &self.value_idx {
+                    let vt = self.schema.channels[ch].value_type;
+                    let values = batch.column(col).clone();
+                    let mut chunk = ChannelChunk {
+                        channel: ch,
+                        times: times.clone(),
+                        rows: (first_row..first_row + times.len() as u64).collect(),
+                        ..Default::default()
+                    };
+                    for i in 0..times.len() {
+                        push_value(&mut chunk, &values, i, vt);
+                    }
+                    chunks.push(chunk);
+                }
+                Ok(chunks)
+            }
+        }
+    }
+
+    fn times(&self, col: &ArrayRef, first_row: u64) -> Result<Vec<i64>> {
+        let scale = self.schema.time_type.nanos_per_unit();
+        let raw: Vec<Option<i64>> = match col.data_type() {
+            DataType::Timestamp(TimeUnit::Second, _) => {
+                col.as_primitive::<TimestampSecondType>().iter().collect()
+            }
+            DataType::Timestamp(TimeUnit::Millisecond, _) => col
+                .as_primitive::<TimestampMillisecondType>()
+                .iter()
+                .collect(),
+            DataType::Timestamp(TimeUnit::Microsecond, _) => col
+                .as_primitive::<TimestampMicrosecondType>()
+                .iter()
+                .collect(),
+            DataType::Timestamp(TimeUnit::Nanosecond, _) => col
+                .as_primitive::<TimestampNanosecondType>()
+                .iter()
+                .collect(),
+            DataType::Int64 => col.as_primitive::<Int64Type>().iter().collect(),
+            other => {
+                return Err(Error::WrongType {
+                    file: self.path.clone(),
+                    column: self.schema.time_column.clone(),
+                    found: other.to_string(),
+                    expected: "Timestamp or Int64".into(),
+                })
+            }
+        };
+        raw.into_iter()
+            .enumerate()
+            .map(|(i, t)| {
+                let t = t.ok_or_else(|| Error::NullTime {
+                    file: self.path.clone(),
+                    column: self.schema.time_column.clone(),
+                    row: first_row + i as u64,
+                })?;
+                t.checked_mul(scale).ok_or_else(|| Error::WrongType {
+                    file: self.path.clone(),
+                    column: self.schema.time_column.clone(),
+                    found: format!("a time at row {} beyond the ns range", first_row + i as u64),
+                    expected: "times within ±292 years of 1970".into(),
+                })
+            })
+            .collect()
+    }
+}
+
+/// Append value i of `col` to the chunk, recording nulls and non-finite values.
+fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType) {
+    let idx = chunk.values.len();
+    if col.is_null(i) {
+        chunk.values.push(f64::NAN);
+        chunk.specials.push((idx, SpecialKind::Null));
+        return;
+    }
+    let v = match vt {
+        ValueType::F64 => col.as_primitive::<Float64Type>().value(i),
+        ValueType::F32 => {
+            let f = col.as_primitive::<Float32Type>().value(i);
+            if f.is_nan() {
+                chunk.values.push(f64::NAN);
+                chunk
+                    .specials
+                    .push((idx, SpecialKind::Nan(f.to_bits() as u64)));
+                return;
+            }
+            f as f64
+        }
+        ValueType::I16 => col.as_primitive::<Int16Type>().value(i) as f64,
+        ValueType::I32 => col.as_primitive::<Int32Type>().value(i) as f64,
+    };
+    if v.is_nan() {
+        chunk.values.push(f64::NAN);
+        chunk.specials.push((idx, SpecialKind::Nan(v.to_bits())));
+    } else if v == f64::INFINITY {
+        chunk.values.push(f64::NAN);
+        chunk.specials.push((idx, SpecialKind::PosInf));
+    } else if v == f64::NEG_INFINITY {
+        chunk.values.push(f64::NAN);
+        chunk.specials.push((idx, SpecialKind::NegInf));
+    } else {
+        chunk.values.push(v);
+    }
+}

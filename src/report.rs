@@ -1,0 +1,348 @@
+//! Report: what `inspect` shows (per channel: segments, samples, order spread, basis mix,
+//! bytes, ratio against raw f32, worst error over budget; and how the file's bytes split
+//! between payload, metadata and derived columns), and the plain-text tables of the other
+//! commands. JSON output serializes the same structs.
+//!
+//! Does not: compute results (it only formats what other stages measured).
+
+use std::collections::BTreeMap;
+
+use serde::Serialize;
+
+use crate::archive::{Archive, DERIVED_COLUMNS, PAYLOAD_COLUMNS};
+use crate::fit::Basis;
+use crate::job::EncodeSummary;
+use crate::verify::VerifyReport;
+
+/// One channel in `inspect`.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChannelInspect {
+    /// Name.
+    pub channel: String,
+    /// Value type.
+    pub value_type: String,
+    /// Segments.
+    pub segments: usize,
+    /// Samples.
+    pub samples: u64,
+    /// Order: min, median, max over Fourier segments.
+    pub order: Option<(u32, u32, u32)>,
+    /// Segments per basis.
+    pub basis: BTreeMap<String, usize>,
+    /// Bytes attributed to the channel (its payload plus its share of the other columns).
+    pub bytes: u64,
+    /// Raw f32 bytes (4 per sample) over `bytes`.
+    pub ratio_vs_f32: f64,
+    /// Largest recorded error over budget (lossy segments).
+    pub worst_error_over_budget: f64,
+    /// Fundamental: how found, and value (Hz).
+    pub fundamental: String,
+}
+
+/// How the archive's bytes split.
+#[derive(Debug, Clone, Serialize)]
+pub struct ByteSplit {
+    /// Payload and checksum columns.
+    pub payload: u64,
+    /// Derived columns (fundamental, RMS, harmonics, THD).
+    pub derived: u64,
+    /// All other columns.
+    pub metadata: u64,
+    /// Parquet footer, headers and file metadata.
+    pub file_overhead: u64,
+    /// Whole file.
+    pub total: u64,
+}
+
+/// `inspect`'s result.
+#[derive(Debug, Clone, Serialize)]
+pub struct Inspect {
+    /// Archive format.
+    pub format: String,
+    /// Writer.
+    pub writer: String,
+    /// Source name.
+    pub source: String,
+    /// Source bytes.
+    pub source_bytes: u64,
+    /// Channels.
+    pub channels: Vec<ChannelInspect>,
+    /// Byte split.
+    pub bytes: ByteSplit,
+}
+
+/// Build the `inspect` result from an archive.
+pub fn inspect(a: &Archive) -> Inspect {
+    let sum_cols = |names: &[&str]| -> u64 {
+        a.column_bytes
+            .iter()
+            .filter(|(n, _)| names.contains(&n.as_str()))
+            .map(|(_, b)| *b)
+            .sum()
+    };
+    let payload = sum_cols(PAYLOAD_COLUMNS);
+    let derived = sum_cols(DERIVED_COLUMNS);
+    let all: u64 = a.column_bytes.iter().map(|(_, b)| *b).sum();
+    let metadata = all - payload - derived;
+    let split = ByteSplit {
+        payload,
+        derived,
+        metadata,
+        file_overhead: a.file_bytes.saturating_sub(all),
+        total: a.file_bytes,
+    };
+    let other = a.file_bytes.saturating_sub(payload) as f64;
+    let total_rows = a.rows.len().max(1) as f64;
+    let mut channels = Vec::new();
+    for cm in &a.meta.channels {
+        let rows: Vec<_> = a.rows.iter().filter(|r| r.channel == cm.name).collect();
+        let mut orders: Vec<u32> = rows.iter().filter_map(|r| r.order).collect();
+        orders.sort_unstable();
+        let mut basis = BTreeMap::new();
+        for b in [Basis::Fourier, Basis::Samples, Basis::Lossless] {
+            let n = rows.iter().filter(|r| r.basis == b).count();
+            if n > 0 {
+                basis.insert(b.name().to_string(), n);
+            }
+        }
+        let pay: u64 = rows
+            .iter()
+            .filter_map(|r| r.payload.as_ref().map(|p| p.len() as u64 + 4))
+            .sum();
+        let bytes = pay + (other * rows.len() as f64 / total_rows).round() as u64;
+        let samples: u64 = rows.iter().map(|r| r.samples as u64).sum();
+        let worst = rows
+            .iter()
+            .filter(|r| r.budget_rms > 0.0)
+            .map(|r| r.error_rms as f64 / r.budget_rms as f64)
+            .fold(0.0, f64::max);
+        channels.push(ChannelInspect {
+            channel: cm.name.clone(),
+            value_type: cm.value_type.name().into(),
+            segments: rows.len(),
+            samples,
+            order: (!orders.is_empty()).then(|| {
+                (
+                    orders[0],
+                    orders[orders.len() / 2],
+                    orders[orders.len() - 1],
+                )
+            }),
+            basis,
+            bytes,
+            ratio_vs_f32: if bytes > 0 {
+                samples as f64 * 4.0 / bytes as f64
+            } else {
+                0.0
+            },
+            worst_error_over_budget: worst,
+            fundamental: match (cm.fundamental.as_str(), cm.fundamental_hz) {
+                ("not_periodic", _) | (_, None) => cm.fundamental.clone(),
+                (kind, Some(hz)) => match cm.tracked_hz {
+                    Some((lo, hi)) if (hi - lo) > 1e-6 * hi => {
+                        format!("{kind} {lo:.3}–{hi:.3} Hz")
+                    }
+                    _ => format!("{kind} {hz:.3} Hz"),
+                },
+            },
+        });
+    }
+    Inspect {
+        format: a.meta.format.clone(),
+        writer: a.meta.writer.clone(),
+        source: a.meta.source.name.clone(),
+        source_bytes: a.meta.source.bytes,
+        channels,
+        bytes: split,
+    }
+}
+
+/// Render a table: a header row and rows of cells, columns padded; numbers right-aligned.
+pub fn table(header: &[&str], rows: &[Vec<String>]) -> String {
+    let n = header.len();
+    let mut width: Vec<usize> = header.iter().map(|h| h.chars().count()).collect();
+    for r in rows {
+        for (i, c) in r.iter().enumerate().take(n) {
+            width[i] = width[i].max(c.chars().count());
+        }
+    }
+    let numeric = |s: &str| {
+        s.chars()
+            .next()
+            .is_some_and(|c| c.is_ascii_digit() || c == '-' || c == '.')
+    };
+    let line = |cells: Vec<&str>| -> String {
+        let mut out = String::new();
+        for (i, c) in cells.iter().enumerate() {
+            let pad = width[i] - c.chars().count();
+            if i > 0 {
+                out.push_str("  ");
+            }
+            if i > 0 && numeric(c) {
+                out.push_str(&" ".repeat(pad));
+                out.push_str(c);
+            } else {
+                out.push_str(c);
+                out.push_str(&" ".repeat(pad));
+            }
+        }
+        out.trim_end().to_string() + "\n"
+    };
+    let mut s = line(header.to_vec());
+    s.push_str(&line(
+        width
+            .iter()
+            .map(|w| "─".repeat(*w))
+            .collect::<Vec<_>>()
+            .iter()
+            .map(String::as_str)
+            .collect(),
+    ));
+    for r in rows {
+        s.push_str(&line(r.iter().map(String::as_str).collect()));
+    }
+    s
+}
+
+/// Human-readable byte count.
+pub fn bytes(n: u64) -> String {
+    let n = n as f64;
+    if n >= 1e9 {
+        format!("{:.2} GB", n / 1e9)
+    } else if n >= 1e6 {
+        format!("{:.2} MB", n / 1e6)
+    } else if n >= 1e3 {
+        format!("{:.1} kB", n / 1e3)
+    } else {
+        format!("{n} B")
+    }
+}
+
+/// Text for `inspect`.
+pub fn inspect_text(i: &Inspect) -> String {
+    let rows: Vec<Vec<String>> = i
+        .channels
+        .iter()
+        .map(|c| {
+            vec![
+                c.channel.clone(),
+                c.value_type.clone(),
+                c.segments.to_string(),
+                c.samples.to_string(),
+                c.order
+                    .map_or("-".into(), |(a, m, b)| format!("{a}/{m}/{b}")),
+                c.basis
+                    .iter()
+                    .map(|(k, v)| format!("{k} {v}"))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                bytes(c.bytes),
+                format!("{:.1}", c.ratio_vs_f32),
+                format!("{:.3}", c.worst_error_over_budget),
+                c.fundamental.clone(),
+            ]
+        })
+        .collect();
+    let mut s = format!(
+        "archive format {} ({}), source {} ({})\n\n",
+        i.format,
+        i.writer,
+        i.source,
+        bytes(i.source_bytes)
+    );
+    s.push_str(&table(
+        &[
+            "channel",
+            "type",
+            "segments",
+            "samples",
+            "order min/med/max",
+            "basis",
+            "bytes",
+            "×f32",
+            "err/budget",
+            "fundamental",
+        ],
+        &rows,
+    ));
+    let b = &i.bytes;
+    let pct = |x: u64| 100.0 * x as f64 / b.total.max(1) as f64;
+    s.push_str(&format!(
+        "\nbytes: {} in all — payload {} ({:.1} %), metadata columns {} ({:.1} %), derived \
+         columns {} ({:.1} %), Parquet structure {} ({:.1} %)\n",
+        bytes(b.total),
+        bytes(b.payload),
+        pct(b.payload),
+        bytes(b.metadata),
+        pct(b.metadata),
+        bytes(b.derived),
+        pct(b.derived),
+        bytes(b.file_overhead),
+        pct(b.file_overhead)
+    ));
+    s
+}
+
+/// Text for an encode summary.
+pub fn encode_text(e: &EncodeSummary) -> String {
+    format!(
+        "{} → {}: {} rows, {} channels, {} segments; {} → {} ({:.1}× smaller than the source \
+         file); worst error/budget {:.3}\n",
+        e.source.display(),
+        e.archive.display(),
+        e.rows,
+        e.channels,
+        e.segments,
+        bytes(e.source_bytes),
+        bytes(e.archive_bytes),
+        e.source_bytes as f64 / e.archive_bytes.max(1) as f64,
+        e.worst_error_over_budget
+    )
+}
+
+/// Text for a verify report.
+pub fn verify_text(v: &VerifyReport) -> String {
+    let rows: Vec<Vec<String>> = v
+        .channels
+        .iter()
+        .map(|c| {
+            vec![
+                c.channel.clone(),
+                c.segments.to_string(),
+                c.samples.to_string(),
+                format!("{:.4e}", c.worst_error_rms),
+                format!("{:.3}", c.worst_error_over_budget),
+                format!("{:.4e}", c.max_abs_error),
+            ]
+        })
+        .collect();
+    let mut s = table(
+        &[
+            "channel",
+            "segments",
+            "samples",
+            "worst rms err",
+            "err/budget",
+            "max |err| (not bounded)",
+        ],
+        &rows,
+    );
+    s.push_str(&format!("digest: {}\n", v.digest));
+    if v.passed() {
+        s.push_str("verify: PASS — every segment within budget, every row and timestamp back\n");
+    } else {
+        for f in &v.findings {
+            s.push_str(&format!(
+                "problem: {}{}{}\n",
+                f.channel
+                    .as_deref()
+                    .map_or(String::new(), |c| format!("channel {c}: ")),
+                f.start_ns
+                    .map_or(String::new(), |t| format!("segment at {t} ns: ")),
+                f.what
+            ));
+        }
+        s.push_str(&format!("verify: FAIL — {} problem(s)\n", v.findings.len()));
+    }
+    s
+}

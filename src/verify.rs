@@ -1,0 +1,316 @@
+//! Verify: check an archive's digest and every block's checksum, rebuild every segment, and
+//! recompute each segment's RMS error against the source: it must be within the segment's
+//! budget, and agree with the recorded error. Every source row must come back with its exact
+//! timestamp, and every NaN, ±Inf and null exactly where it was. The largest absolute error is
+//! reported as information only: an L2 bound does not bound peaks.
+//!
+//! Does not: encode anything.
+
+use std::collections::HashMap;
+use std::path::{Path, PathBuf};
+
+use serde::Serialize;
+
+use crate::archive::{check_digest, read_archive, Archive};
+use crate::assemble::{assemble, ChannelSamples};
+use crate::decode::{decode_channels, ChannelSeries};
+use crate::error::{Error, Result};
+use crate::options::EncodeOptions;
+use crate::pack::SpecialKind;
+use crate::read::Source;
+use crate::signal::{Transform, ValueType};
+
+/// Relative slack when comparing a recomputed error with the recorded (f32, rounded-up) one:
+/// summation order may differ between machines.
+pub const RECORDED_ERROR_SLACK: f64 = 1e-6;
+
+/// A problem found by `verify`.
+#[derive(Debug, Clone, Serialize)]
+pub struct Finding {
+    /// Channel, when it applies.
+    pub channel: Option<String>,
+    /// Segment start (ns), when it applies.
+    pub start_ns: Option<i64>,
+    /// What is wrong.
+    pub what: String,
+}
+
+/// Per-channel verification results.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChannelCheck {
+    /// Channel.
+    pub channel: String,
+    /// Segments checked.
+    pub segments: usize,
+    /// Samples compared.
+    pub samples: usize,
+    /// Largest error/budget over lossy segments.
+    pub worst_error_over_budget: f64,
+    /// Largest RMS error of a segment.
+    pub worst_error_rms: f64,
+    /// Largest absolute error of any sample (information: not bounded by the budget).
+    pub max_abs_error: f64,
+}
+
+/// The outcome of `verify`.
+#[derive(Debug, Clone, Serialize)]
+pub struct VerifyReport {
+    /// Archive.
+    pub archive: PathBuf,
+    /// Source.
+    pub source: PathBuf,
+    /// Whether the digest file was present and matched.
+    pub digest: String,
+    /// Per channel.
+    pub channels: Vec<ChannelCheck>,
+    /// Problems (empty means the archive passed).
+    pub findings: Vec<Finding>,
+}
+
+impl VerifyReport {
+    /// Whether everything passed.
+    pub fn passed(&self) -> bool {
+        self.findings.is_empty()
+    }
+}
+
+fn finding(channel: Option<&str>, start_ns: Option<i64>, what: String) -> Finding {
+    Finding {
+        channel: channel.map(str::to_string),
+        start_ns,
+        what,
+    }
+}
+
+/// Verify an archive against its source.
+pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result<VerifyReport> {
+    let mut findings = Vec::new();
+    let digest = match check_digest(archive_path)? {
+        Some(true) => "ok".to_string(),
+        Some(false) => {
+            findings.push(finding(
+                None,
+                None,
+                "archive digest differs from the recorded one (file changed or damaged)".into(),
+            ));
+            "mismatch".to_string()
+        }
+        None => "missing".to_string(),
+    };
+    let archive = read_archive(archive_path)?;
+    let series = match decode_channels(&archive, &[], None, None, fft) {
+        Ok(s) => s,
+        Err(Error::Damaged { reason, .. }) => {
+            findings.push(finding(None, None, reason));
+            return Ok(VerifyReport {
+                archive: archive_path.to_path_buf(),
+                source: source.to_path_buf(),
+                digest,
+                channels: Vec::new(),
+                findings,
+            });
+        }
+        Err(e) => return Err(e),
+    };
+    let (src_meta_sha, _) = crate::archive::sha256_file(source)?;
+    if src_meta_sha != archive.meta.source.sha256 {
+        findings.push(finding(
+            None,
+            None,
+            format!(
+                "source {} is not the file archived (SHA-256 differs from {})",
+                source.display(),
+                archive.meta.source.name
+            ),
+        ));
+    }
+    let sources = read_source_like(&archive, source)?;
+    let mut channels = Vec::new();
+    let decoded: HashMap<&str, &ChannelSeries> =
+        series.iter().map(|s| (s.name.as_str(), s)).collect();
+    for cm in &archive.meta.channels {
+        let Some(src) = sources.get(&cm.name) else {
+            findings.push(finding(
+                Some(&cm.name),
+                None,
+                "channel missing from the source".into(),
+            ));
+            continue;
+        };
+        let Some(dec) = decoded.get(cm.name.as_str()) else {
+            findings.push(finding(
+                Some(&cm.name),
+                None,
+                "channel has no segments in the archive".into(),
+            ));
+            continue;
+        };
+        channels.push(check_channel(
+            &archive,
+            cm.value_type,
+            src,
+            dec,
+            &mut findings,
+        ));
+    }
+    for name in sources.keys() {
+        if !archive.meta.channels.iter().any(|c| &c.name == name) {
+            findings.push(finding(
+                Some(name),
+                None,
+                "source channel not in the archive".into(),
+            ));
+        }
+    }
+    Ok(VerifyReport {
+        archive: archive_path.to_path_buf(),
+        source: source.to_path_buf(),
+        digest,
+        channels,
+        findings,
+    })
+}
+
+/// The source's samples per channel, read with the mapping recorded in the archive.
+fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, ChannelSeries>> {
+    let schema = &archive.meta.schema;
+    let opts = EncodeOptions {
+        layout: Some(schema.layout),
+        time_column: Some(schema.time_column.clone()),
+        channel_column: schema.channel_column.clone(),
+        value_column: schema.value_column.clone(),
+        channels: Some(
+            archive
+                .meta
+                .channels
+                .iter()
+                .map(|c| c.name.clone())
+                .collect(),
+        ),
+        ..Default::default()
+    };
+    let settings = opts.resolve()?;
+    let mut src = Source::open(source, &settings)?;
+    let mut samples: HashMap<usize, ChannelSamples> = HashMap::new();
+    while let Some(chunks) = src.next_chunks() {
+        for c in chunks? {
+            samples.entry(c.channel).or_default().extend(c);
+        }
+    }
+    let mut out = HashMap::new();
+    for (ci, s) in samples {
+        let info = src.schema.channels[ci].clone();
+        // Sorting and duplicate checks as the encoder did; one sample rate for all runs.
+        let ch = assemble(source, info.clone(), s, Some(1.0))?;
+        let mut series = ChannelSeries {
+            name: info.name.clone(),
+            ..Default::default()
+        };
+        for run in ch.runs {
+            let base = series.times.len();
+            series
+                .specials
+                .extend(run.specials.iter().map(|&(i, k)| (i + base, k)));
+            series.times.extend(run.times);
+            series.values.extend(run.values);
+        }
+        out.insert(info.name, series);
+    }
+    Ok(out)
+}
+
+fn check_channel(
+    archive: &Archive,
+    value_type: ValueType,
+    src: &ChannelSeries,
+    dec: &ChannelSeries,
+    findings: &mut Vec<Finding>,
+) -> ChannelCheck {
+    let name = src.name.as_str();
+    let mut check = ChannelCheck {
+        channel: name.to_string(),
+        segments: dec.segments.len(),
+        samples: dec.times.len(),
+        worst_error_over_budget: 0.0,
+        worst_error_rms: 0.0,
+        max_abs_error: 0.0,
+    };
+    if src.times != dec.times {
+        let at = src
+            .times
+            .iter()
+            .zip(&dec.times)
+            .position(|(a, b)| a != b)
+            .unwrap_or(src.times.len().min(dec.times.len()));
+        findings.push(finding(
+            Some(name),
+            None,
+            format!(
+                "timestamps differ: source has {} rows, archive {}; first difference at sample {at}",
+                src.times.len(),
+                dec.times.len()
+            ),
+        ));
+        return check;
+    }
+    if !same_specials(&src.specials, &dec.specials, value_type) {
+        findings.push(finding(
+            Some(name),
+            None,
+            "null, NaN or ±Inf values do not come back where they were".into(),
+        ));
+    }
+    for (row, range) in &dec.segments {
+        let r = &archive.rows[*row];
+        let (mut sum, mut n, mut max_abs) = (0.0f64, 0usize, 0.0f64);
+        for i in range.clone() {
+            let (x, y) = (src.values[i], dec.values[i]);
+            if !x.is_finite() {
+                continue;
+            }
+            let e = y - x;
+            sum += e * e;
+            n += 1;
+            max_abs = max_abs.max(e.abs());
+        }
+        let err = if n > 0 { (sum / n as f64).sqrt() } else { 0.0 };
+        let budget = r.budget_rms as f64;
+        check.worst_error_rms = check.worst_error_rms.max(err);
+        check.max_abs_error = check.max_abs_error.max(max_abs);
+        if budget > 0.0 {
+            check.worst_error_over_budget = check.worst_error_over_budget.max(err / budget);
+        }
+        if !(err <= budget) {
+            findings.push(finding(
+                Some(name),
+                Some(r.start_ns),
+                format!("RMS error {err:.6e} exceeds the budget {budget:.6e}"),
+            ));
+        } else if !(err <= r.error_rms as f64 * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE) {
+            findings.push(finding(
+                Some(name),
+                Some(r.start_ns),
+                format!(
+                    "RMS error {err:.6e} is above the recorded {:.6e}",
+                    r.error_rms
+                ),
+            ));
+        }
+    }
+    check
+}
+
+fn same_specials(
+    a: &[(usize, SpecialKind)],
+    b: &[(usize, SpecialKind)],
+    value_type: ValueType,
+) -> bool {
+    let norm = |k: SpecialKind| match (k, value_type) {
+        (SpecialKind::Nan(bits), ValueType::F32) => SpecialKind::Nan(bits & 0xffff_ffff),
+        (k, _) => k,
+    };
+    a.len() == b.len()
+        && a.iter()
+            .zip(b)
+            .all(|(x, y)| x.0 == y.0 && norm(x.1) == norm(y.1))
+}
