@@ -192,7 +192,7 @@ fn encode_block_of(run: &Run, segs: &[PlannedSegment], p: &RunParams<'_>) -> Res
             .collect();
         let k = s.cycles as usize;
         let harmonic = |h: usize| -> Option<(f32, f32)> {
-            if k == 0 || h * k >= s.len / 2 + 1 {
+            if k == 0 || h * k > s.len / 2 {
                 return None;
             }
             let c = fitted.spectrum.get(h * k).copied().unwrap_or_default();

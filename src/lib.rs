@@ -47,9 +47,12 @@
 //! many: blocks of segments are fitted in parallel but their content never depends on the
 //! thread count or on the input's row-group sizes.
 #![warn(missing_docs)]
+// Comparisons like `!(x > 0.0)` are deliberate: they are true for NaN, which must fail them.
+#![allow(clippy::neg_cmp_op_on_partial_ord)]
 
 pub mod archive;
 pub mod assemble;
+pub mod baseline;
 pub mod decode;
 pub mod error;
 pub mod fit;

@@ -80,7 +80,7 @@ pub fn half_len(n: usize) -> usize {
 /// Weight of bin k of an N-sample real DFT in the error energy: 1 for DC and Nyquist, else 2.
 #[inline]
 pub fn weight(k: usize, n: usize) -> f64 {
-    if k == 0 || (n % 2 == 0 && k == n / 2) {
+    if k == 0 || (n.is_multiple_of(2) && k == n / 2) {
         1.0
     } else {
         2.0
@@ -90,7 +90,7 @@ pub fn weight(k: usize, n: usize) -> f64 {
 /// Whether bin k of an N-sample real DFT is purely real (DC, and Nyquist for even N).
 #[inline]
 pub fn is_real_bin(k: usize, n: usize) -> bool {
-    k == 0 || (n % 2 == 0 && k == n / 2)
+    k == 0 || (n.is_multiple_of(2) && k == n / 2)
 }
 
 /// An orthonormal real DFT of any length: forward gives `c_k = X_k/√N` for `k = 0 … ⌊N/2⌋`,
@@ -166,7 +166,7 @@ impl Transform for RealFft {
         let mut input = c.to_vec();
         input.resize(half_len(n), C64::new(0.0, 0.0));
         input[0].im = 0.0;
-        if n % 2 == 0 {
+        if n.is_multiple_of(2) {
             input[n / 2].im = 0.0;
         }
         let mut out = plan.make_output_vec();
