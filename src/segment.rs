@@ -39,6 +39,9 @@ pub const TRACK_MIN_SECONDS: f64 = 0.5;
 /// No segment is longer than this many samples.
 pub const MAX_SEGMENT_SAMPLES: usize = 1 << 20;
 
+/// Spectral peaks considered as fundamental candidates (each with its sub-multiples).
+const PEAK_CANDIDATES: usize = 5;
+
 /// Fewest samples a window needs for an estimate.
 const MIN_ESTIMATE_SAMPLES: usize = 64;
 
@@ -168,22 +171,105 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
     if k_lo >= k_hi {
         return None;
     }
-    let k = (k_lo..=k_hi).max_by(|&a, &b| mag[a].total_cmp(&mag[b]))?;
-    let peak_hz = refine_peak(&mag, k) * bin_hz;
-    let peak_hz = refine_by_phase(&xc, fs, peak_hz).unwrap_or(peak_hz);
-    // Octave check: the fundamental may be the peak divided by m.
-    let r: Vec<(usize, f64)> = (1..=6)
-        .map(|d| (d, peak_hz / d as f64))
-        .filter(|&(_, f)| f >= f_lo * 0.999)
-        .map(|(d, f)| (d, autocorrelation(&xc, energy, fs / f)))
+    // Normalized autocorrelation for every lag of the signal and of its first difference, from
+    // their power spectra (Wiener–Khinchin), zero-padded so the circular correlation does not
+    // wrap. The difference removes slow wander that would otherwise dominate; a signal
+    // periodic in P has both correlate at P.
+    let diff: Vec<f64> = xc.windows(2).map(|w| w[1] - w[0]).collect();
+    let acfs = [normalized_acf(&xc, m), normalized_acf(&diff, m)];
+    let corr = |lag: f64| -> f64 {
+        acfs.iter()
+            .map(|a| interpolate(a, lag))
+            .fold(f64::NEG_INFINITY, f64::max)
+    };
+    // Candidates: the strongest few spectral peaks and their sub-multiples (the fundamental
+    // may be weaker than a harmonic, and a slow drift may hold the largest peak).
+    let mut peaks: Vec<usize> = (k_lo..=k_hi)
+        .filter(|&k| mag[k] >= mag[k - 1] && mag[k] > mag[k + 1])
         .collect();
-    let best = r.iter().map(|p| p.1).fold(f64::NEG_INFINITY, f64::max);
-    let &(d, conf) = r.iter().find(|p| p.1 >= 0.9 * best)?;
-    let hz = peak_hz / d as f64;
+    peaks.sort_by(|&a, &b| mag[b].total_cmp(&mag[a]).then(a.cmp(&b)));
+    peaks.truncate(PEAK_CANDIDATES);
+    let mut cands: Vec<(f64, f64)> = Vec::new();
+    for &k in &peaks {
+        let peak_hz = refine_peak(&mag, k) * bin_hz;
+        let peak_hz = refine_by_phase(&xc, fs, peak_hz).unwrap_or(peak_hz);
+        for d in 1..=6 {
+            let f = peak_hz / d as f64;
+            if f >= f_lo * 0.999 {
+                cands.push((f, corr(fs / f)));
+            }
+        }
+    }
+    // And each autocorrelation's own highest peak after its first zero crossing (the classic
+    // time-domain period estimate), refined by a parabola through its neighbours.
+    let lag_lo = ((fs / f_hi).floor() as usize).max(1);
+    let lag_hi = ((fs / f_lo).ceil() as usize).min(n / 2);
+    for acf in &acfs {
+        let hi = lag_hi.min(acf.len().saturating_sub(1));
+        let Some(zero) = (1..hi).find(|&l| acf[l] <= 0.0) else {
+            continue;
+        };
+        let lo = zero.max(lag_lo);
+        if let Some(l) = (lo..hi).max_by(|&a, &b| acf[a].total_cmp(&acf[b])) {
+            if l > lo && l + 1 < hi {
+                let (a, b, c) = (acf[l - 1], acf[l], acf[l + 1]);
+                let den = a - 2.0 * b + c;
+                let d = if den.abs() > 0.0 {
+                    (0.5 * (a - c) / den).clamp(-0.5, 0.5)
+                } else {
+                    0.0
+                };
+                let f = fs / (l as f64 + d);
+                cands.push((f, corr(fs / f)));
+            }
+        }
+    }
+    let best = cands.iter().map(|c| c.1).fold(f64::NEG_INFINITY, f64::max);
+    if !(best > 0.0) {
+        return None;
+    }
+    // The highest frequency (shortest period) whose correlation is close to the best: a
+    // signal periodic in P also correlates at 2P, 3P, …
+    let (hz, conf) = cands
+        .iter()
+        .filter(|c| c.1 >= 0.9 * best)
+        .copied()
+        .max_by(|a, b| a.0.total_cmp(&b.0))?;
     (hz.is_finite() && hz > 0.0).then_some(Estimate {
         hz,
         confidence: conf.clamp(-1.0, 1.0),
     })
+}
+
+/// Normalized, unbiased autocorrelation r(l)/r(0)·n/(n−l) of a zero-mean signal for lags
+/// 0 … n−1, through a zero-padded FFT of length `m ≥ 2n`.
+fn normalized_acf(x: &[f64], m: usize) -> Vec<f64> {
+    let n = x.len();
+    let mut padded = vec![0.0; m];
+    padded[..n].copy_from_slice(x);
+    let power: Vec<_> = RealFft::shared()
+        .forward(&padded)
+        .iter()
+        .map(|c| rustfft::num_complex::Complex::new(c.norm_sqr(), 0.0))
+        .collect();
+    let acf = RealFft::shared().inverse(&power, m);
+    let r0 = acf[0];
+    if !(r0 > 0.0) {
+        return vec![f64::NEG_INFINITY; n];
+    }
+    (0..n)
+        .map(|l| acf[l] / r0 * n as f64 / (n - l) as f64)
+        .collect()
+}
+
+/// Linear interpolation of `a` at a fractional index (−∞ outside).
+fn interpolate(a: &[f64], at: f64) -> f64 {
+    if !(at >= 1.0) || at as usize + 1 >= a.len() {
+        return f64::NEG_INFINITY;
+    }
+    let l0 = at.floor() as usize;
+    let t = at - l0 as f64;
+    a[l0] * (1.0 - t) + a[l0 + 1] * t
 }
 
 fn hann(i: usize, n: usize) -> f64 {
@@ -244,26 +330,6 @@ fn refine_by_phase(x: &[f64], fs: f64, f: f64) -> Option<f64> {
     ((refined - f).abs() < fs / (2.0 * h as f64) && refined > 0.0).then_some(refined)
 }
 
-/// Normalized autocorrelation of a zero-mean signal at a fractional lag (linear
-/// interpolation between the neighbouring integer lags).
-pub fn autocorrelation(x: &[f64], energy: f64, lag: f64) -> f64 {
-    let n = x.len();
-    if !(lag >= 1.0) || lag as usize >= n {
-        return f64::NEG_INFINITY;
-    }
-    let r = |l: usize| -> f64 {
-        if l >= n {
-            return 0.0;
-        }
-        let s: f64 = x[..n - l].iter().zip(&x[l..]).map(|(a, b)| a * b).sum();
-        // Unbiased for the overlap, normalized by the energy.
-        s / energy * n as f64 / (n - l) as f64
-    };
-    let l0 = lag.floor() as usize;
-    let t = lag - l0 as f64;
-    r(l0) * (1.0 - t) + r(l0 + 1) * t
-}
-
 /// Cycles per segment: the given K, or the fewest whole cycles spanning `min_seconds`,
 /// capped so that a segment stays within [`MAX_SEGMENT_SAMPLES`].
 pub fn cycles_per_segment(settings: &SegmentSettings, period: f64) -> u32 {
@@ -280,32 +346,13 @@ pub fn cycles_per_segment(settings: &SegmentSettings, period: f64) -> u32 {
     k.min(cap)
 }
 
-/// Plan the segments of one run of samples (non-finite values allowed; they are ignored by
-/// estimation, which then uses the longest finite stretch of each window).
+/// Plan the segments of one whole run of samples (non-finite values allowed; they are
+/// ignored by estimation, which uses the longest finite stretch of each window).
+/// Equivalent to feeding the run to a [`Planner`] in any number of pieces.
 pub fn plan_segments(x: &[f64], settings: &SegmentSettings) -> SegmentPlan {
-    let fs = settings.sample_rate;
-    let n = x.len();
-    match settings.fundamental {
-        FundamentalSetting::None => fixed_blocks(n, settings, FundamentalSource::NotPeriodic, None),
-        FundamentalSetting::Hz(f0) => {
-            let period = fs / f0;
-            if !(period >= 2.0) || period > MAX_SEGMENT_SAMPLES as f64 {
-                return fixed_blocks(n, settings, FundamentalSource::NotPeriodic, None);
-            }
-            let k = cycles_per_segment(settings, period);
-            let segs = cut(0, n, 0.0, k, period);
-            SegmentPlan {
-                segments: segs,
-                fundamental: Some(Estimate {
-                    hz: f0,
-                    confidence: 1.0,
-                }),
-                source: FundamentalSource::Given,
-                tracked_range: Some((f0, f0)),
-            }
-        }
-        FundamentalSetting::Auto => plan_tracked(x, settings),
-    }
+    let mut p = Planner::new(*settings);
+    let segments = p.advance(x, 0, true);
+    p.into_plan(segments)
 }
 
 /// Longest run of finite values in `x` (as a slice).
@@ -323,125 +370,236 @@ fn longest_finite(x: &[f64]) -> &[f64] {
     &x[best.0..best.1]
 }
 
-fn plan_tracked(x: &[f64], settings: &SegmentSettings) -> SegmentPlan {
-    let fs = settings.sample_rate;
-    let n = x.len();
-    // Global estimate on the first stretch (up to 2^17 samples).
-    let head = longest_finite(&x[..n.min(1 << 17)]);
-    let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
-    let global = estimate_fundamental(head, fs, f_min, fs / 2.0)
-        .filter(|e| e.confidence >= settings.min_confidence && fs / e.hz >= 2.0);
-    let Some(global) = global else {
-        return fixed_blocks(n, settings, FundamentalSource::NotPeriodic, None);
-    };
-    let window = ((TRACK_MIN_CYCLES * fs / global.hz).max(TRACK_MIN_SECONDS * fs) as usize)
-        .clamp(MIN_ESTIMATE_SAMPLES * 4, 1 << 17);
-    let mut f_cur = global.hz;
-    let (mut lo, mut hi) = (f_cur, f_cur);
-    let mut segs = Vec::new();
-    let mut phi = 0.0f64;
-    let mut block_start = 0usize;
-    while block_start < n {
-        let block_end = (block_start + window).min(n);
-        // Estimate on a window centred on this block, searching near the current estimate.
-        let c = (block_start + block_end) / 2;
-        let a = c.saturating_sub(window / 2);
-        let b = (a + window).min(n);
-        let local = longest_finite(&x[a..b]);
-        if local.len() >= window / 2 {
-            if let Some(e) = estimate_fundamental(local, fs, f_cur / 1.25, f_cur * 1.25) {
-                if e.confidence >= settings.min_confidence && (e.hz / f_cur - 1.0).abs() < 0.2 {
-                    f_cur = e.hz;
+/// Samples the first (global) estimate of a run looks at.
+pub const GLOBAL_ESTIMATE_SAMPLES: usize = 1 << 17;
+
+#[derive(Debug, Clone)]
+enum Mode {
+    /// Waiting for enough samples for the global estimate.
+    Start,
+    /// Fixed-length blocks of `len`.
+    Fixed { len: usize },
+    /// Given fundamental: segments of ideal length `ideal` (K = `k`).
+    Given { ideal: f64, k: u32 },
+    /// Tracked fundamental.
+    Tracked {
+        window: usize,
+        f_cur: f64,
+        /// The current tracking block's end and its segment length, once estimated.
+        block: Option<(usize, f64, u32)>,
+    },
+}
+
+/// Incremental segmentation of one run: feed the samples as they arrive; the segments it
+/// returns depend only on the run's samples, never on how they were split into pieces.
+#[derive(Debug, Clone)]
+pub struct Planner {
+    settings: SegmentSettings,
+    mode: Mode,
+    /// Position (fractional sample index) of the next boundary.
+    phi: f64,
+    /// Start of the current tracking block.
+    block_start: usize,
+    estimate: Option<Estimate>,
+    source: FundamentalSource,
+    range: Option<(f64, f64)>,
+}
+
+impl Planner {
+    /// A planner for a new run.
+    pub fn new(settings: SegmentSettings) -> Self {
+        let fs = settings.sample_rate;
+        let (mode, source, estimate, range) = match settings.fundamental {
+            FundamentalSetting::None => (
+                Mode::Fixed {
+                    len: fixed_len(&settings),
+                },
+                FundamentalSource::NotPeriodic,
+                None,
+                None,
+            ),
+            FundamentalSetting::Hz(f0) => {
+                let period = fs / f0;
+                if !(period >= 2.0) || period > MAX_SEGMENT_SAMPLES as f64 {
+                    (
+                        Mode::Fixed {
+                            len: fixed_len(&settings),
+                        },
+                        FundamentalSource::NotPeriodic,
+                        None,
+                        None,
+                    )
+                } else {
+                    let k = cycles_per_segment(&settings, period);
+                    (
+                        Mode::Given {
+                            ideal: k as f64 * period,
+                            k,
+                        },
+                        FundamentalSource::Given,
+                        Some(Estimate {
+                            hz: f0,
+                            confidence: 1.0,
+                        }),
+                        Some((f0, f0)),
+                    )
                 }
             }
+            FundamentalSetting::Auto => (Mode::Start, FundamentalSource::NotPeriodic, None, None),
+        };
+        Planner {
+            settings,
+            mode,
+            phi: 0.0,
+            block_start: 0,
+            estimate,
+            source,
+            range,
         }
-        lo = lo.min(f_cur);
-        hi = hi.max(f_cur);
-        let period = fs / f_cur;
-        let k = cycles_per_segment(settings, period);
-        let ideal = k as f64 * period;
-        // Cut segments that start inside this block.
-        while (phi.round() as usize) < block_end {
-            let s = phi.round() as usize;
-            let next = phi + ideal;
-            let e_full = next.round() as usize;
-            let e = e_full.min(n);
-            if e <= s {
+    }
+
+    /// The first run index the planner may still read (samples before it can be dropped).
+    pub fn keep_from(&self) -> usize {
+        match self.mode {
+            Mode::Start => 0,
+            Mode::Tracked { window, .. } => {
+                let c = self.block_start + window / 2;
+                (c.saturating_sub(window / 2)).min(self.phi.round() as usize)
+            }
+            _ => self.phi.round() as usize,
+        }
+    }
+
+    /// Feed samples: `x` holds the run's samples from index `base` on; `complete` says the
+    /// run ends after them. Returns the segments that are now final.
+    pub fn advance(&mut self, x: &[f64], base: usize, complete: bool) -> Vec<PlannedSegment> {
+        let avail = base + x.len();
+        let at = |i: usize| i - base;
+        let mut out = Vec::new();
+        if let Mode::Start = self.mode {
+            if !complete && avail < GLOBAL_ESTIMATE_SAMPLES {
+                return out;
+            }
+            let fs = self.settings.sample_rate;
+            let head = longest_finite(&x[at(0)..at(avail.min(GLOBAL_ESTIMATE_SAMPLES))]);
+            let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
+            let global = estimate_fundamental(head, fs, f_min, fs / 2.0)
+                .filter(|e| e.confidence >= self.settings.min_confidence && fs / e.hz >= 2.0);
+            self.mode = match global {
+                None => Mode::Fixed {
+                    len: fixed_len(&self.settings),
+                },
+                Some(g) => {
+                    self.estimate = Some(g);
+                    self.source = FundamentalSource::Estimated;
+                    self.range = Some((g.hz, g.hz));
+                    Mode::Tracked {
+                        window: ((TRACK_MIN_CYCLES * fs / g.hz).max(TRACK_MIN_SECONDS * fs)
+                            as usize)
+                            .clamp(MIN_ESTIMATE_SAMPLES * 4, GLOBAL_ESTIMATE_SAMPLES),
+                        f_cur: g.hz,
+                        block: None,
+                    }
+                }
+            };
+        }
+        loop {
+            let start = self.phi.round() as usize;
+            if start >= avail {
                 break;
             }
+            let (ideal, k) = match &mut self.mode {
+                Mode::Start => unreachable!("the global estimate was made above"),
+                Mode::Fixed { len } => (*len as f64, 0),
+                Mode::Given { ideal, k } => (*ideal, *k),
+                Mode::Tracked {
+                    window,
+                    f_cur,
+                    block,
+                } => {
+                    let w = *window;
+                    if let Some((end, _, _)) = *block {
+                        if start >= end {
+                            self.block_start = end;
+                            *block = None;
+                        }
+                    }
+                    if block.is_none() {
+                        // The block and its estimation window must be fully available.
+                        let bs = self.block_start;
+                        if !complete && avail < bs + 2 * w {
+                            break;
+                        }
+                        let block_end = (bs + w).min(avail);
+                        let c = (bs + block_end) / 2;
+                        let a = c.saturating_sub(w / 2);
+                        let b = (a + w).min(avail);
+                        let local = longest_finite(&x[at(a)..at(b)]);
+                        let fs = self.settings.sample_rate;
+                        if local.len() >= w / 2 {
+                            if let Some(e) =
+                                estimate_fundamental(local, fs, *f_cur / 1.25, *f_cur * 1.25)
+                            {
+                                if e.confidence >= self.settings.min_confidence
+                                    && (e.hz / *f_cur - 1.0).abs() < 0.2
+                                {
+                                    *f_cur = e.hz;
+                                }
+                            }
+                        }
+                        if let Some((lo, hi)) = &mut self.range {
+                            *lo = lo.min(*f_cur);
+                            *hi = hi.max(*f_cur);
+                        }
+                        let period = fs / *f_cur;
+                        let k = cycles_per_segment(&self.settings, period);
+                        *block = Some((block_end, k as f64 * period, k));
+                    }
+                    let (_, ideal, k) = block.unwrap_or((0, 1.0, 0));
+                    (ideal, k)
+                }
+            };
+            let next = self.phi + ideal;
+            let e_full = (next.round() as usize).max(start + 1);
+            if e_full > avail && !complete {
+                break;
+            }
+            let e = e_full.min(avail);
             let whole = e == e_full;
-            segs.push(PlannedSegment {
-                start: s,
-                len: e - s,
+            out.push(PlannedSegment {
+                start,
+                len: e - start,
                 cycles: if whole { k } else { 0 },
-                ideal_len: if whole { ideal as f32 } else { (e - s) as f32 },
+                ideal_len: if whole {
+                    ideal as f32
+                } else {
+                    (e - start) as f32
+                },
             });
-            phi = next;
-            if e == n {
-                break;
-            }
+            self.phi = if whole { next } else { e as f64 };
         }
-        block_start = block_end;
+        out
     }
-    SegmentPlan {
-        segments: segs,
-        fundamental: Some(global),
-        source: FundamentalSource::Estimated,
-        tracked_range: Some((lo, hi)),
+
+    /// The plan summary with the segments collected by the caller.
+    pub fn into_plan(self, segments: Vec<PlannedSegment>) -> SegmentPlan {
+        SegmentPlan {
+            segments,
+            fundamental: self.estimate,
+            source: self.source,
+            tracked_range: self.range,
+        }
+    }
+
+    /// How the fundamental was found so far.
+    pub fn summary(&self) -> (Option<Estimate>, FundamentalSource, Option<(f64, f64)>) {
+        (self.estimate, self.source, self.range)
     }
 }
 
-/// Cut `[start, end)` into K-cycle segments of ideal length K·P starting at phase `phi0`.
-/// The final partial segment (shorter than K cycles) is marked as not periodic.
-fn cut(start: usize, end: usize, phi0: f64, k: u32, period: f64) -> Vec<PlannedSegment> {
-    let ideal = k as f64 * period;
-    let mut out = Vec::new();
-    let mut j = 0u64;
-    loop {
-        let s = start + (phi0 + j as f64 * ideal).round() as usize;
-        if s >= end {
-            break;
-        }
-        let e_full = start + (phi0 + (j + 1) as f64 * ideal).round() as usize;
-        let e = e_full.min(end);
-        let whole = e == e_full;
-        out.push(PlannedSegment {
-            start: s,
-            len: e - s,
-            cycles: if whole { k } else { 0 },
-            ideal_len: if whole { ideal as f32 } else { (e - s) as f32 },
-        });
-        j += 1;
-    }
-    out
-}
-
-fn fixed_blocks(
-    n: usize,
-    settings: &SegmentSettings,
-    source: FundamentalSource,
-    estimate: Option<Estimate>,
-) -> SegmentPlan {
-    let len = ((settings.fallback_segment_seconds * settings.sample_rate).round() as usize)
-        .clamp(16, MAX_SEGMENT_SAMPLES);
-    let segments = (0..n)
-        .step_by(len)
-        .map(|s| {
-            let l = len.min(n - s);
-            PlannedSegment {
-                start: s,
-                len: l,
-                cycles: 0,
-                ideal_len: l as f32,
-            }
-        })
-        .collect();
-    SegmentPlan {
-        segments,
-        fundamental: estimate,
-        source,
-        tracked_range: None,
-    }
+fn fixed_len(settings: &SegmentSettings) -> usize {
+    ((settings.fallback_segment_seconds * settings.sample_rate).round() as usize)
+        .clamp(16, MAX_SEGMENT_SAMPLES)
 }
 
 #[cfg(test)]
@@ -482,6 +640,37 @@ mod tests {
             .collect();
         let (mn, mx) = (whole.iter().min().unwrap(), whole.iter().max().unwrap());
         assert!(mx - mn <= 1, "{mn} {mx}");
+    }
+
+    #[test]
+    fn planner_fed_in_pieces_equals_the_whole_run_plan() {
+        // A drifting tone: the tracked plan must not depend on how samples arrive.
+        let fs = 5_000.0;
+        let n = 400_000;
+        let mut ph = 0.0f64;
+        let x: Vec<f64> = (0..n)
+            .map(|i| {
+                let f = 50.0 * (1.0 + 0.1 * i as f64 / n as f64);
+                ph += 2.0 * std::f64::consts::PI * f / fs;
+                ph.sin() + 0.2 * (3.0 * ph).sin()
+            })
+            .collect();
+        let s = SegmentSettings::new(fs);
+        let whole = plan_segments(&x, &s);
+        assert_eq!(whole.source, FundamentalSource::Estimated);
+        for piece in [1_000usize, 77_777, 150_000] {
+            let mut p = Planner::new(s);
+            let mut segs = Vec::new();
+            let mut base = 0;
+            let mut fed = 0;
+            while fed < n {
+                fed = (fed + piece).min(n);
+                let keep = p.keep_from().max(base);
+                segs.extend(p.advance(&x[keep..fed], keep, fed == n));
+                base = keep;
+            }
+            assert_eq!(p.into_plan(segs), whole, "pieces of {piece}");
+        }
     }
 
     #[test]
