@@ -259,6 +259,12 @@ impl ArchiveMeta {
         schema: SourceSchema,
         channels: Vec<ChannelMeta>,
     ) -> Self {
+        let mut schema = schema;
+        if schema.layout == crate::options::Layout::Long {
+            // Long: the order of first appearance follows the source's row order, which must
+            // not change the archive's bytes (the wide layout's column order is kept).
+            schema.channels.sort_by(|a, b| a.name.cmp(&b.name));
+        }
         ArchiveMeta {
             format: FORMAT_VERSION.into(),
             writer: WRITER.into(),
@@ -317,14 +323,10 @@ pub const DERIVED_COLUMNS: &[&str] = &[
 /// Payload columns in `inspect`.
 pub const PAYLOAD_COLUMNS: &[&str] = &["payload", "checksum"];
 
-fn writer_properties(meta_json: String) -> WriterProperties {
+fn writer_properties() -> WriterProperties {
     let mut b = WriterProperties::builder()
         .set_compression(Compression::ZSTD(ZstdLevel::try_new(9).unwrap_or_default()))
-        .set_max_row_group_row_count(Some(1 << 20))
-        .set_key_value_metadata(Some(vec![
-            KeyValue::new(KEY_FORMAT.into(), FORMAT_VERSION.to_string()),
-            KeyValue::new(KEY_META.into(), meta_json),
-        ]));
+        .set_max_row_group_row_count(Some(1 << 20));
     let col = |n: &str| ColumnPath::from(n);
     for n in ["start", "block"] {
         b = b
@@ -476,64 +478,147 @@ pub fn digest_path(archive: &Path) -> PathBuf {
     PathBuf::from(s)
 }
 
-/// Write the archive (and its digest beside it). Returns the archive's size in bytes.
-pub fn write_archive(out: &Path, meta: &ArchiveMeta, blocks: Vec<EncodedBlock>) -> Result<u64> {
-    let meta_json = serde_json::to_string(meta).map_err(|e| Error::WriteParquet {
-        file: out.to_path_buf(),
-        reason: e.to_string(),
-    })?;
-    let schema = Arc::new(archive_schema());
-    let perr = |e: String| Error::WriteParquet {
-        file: out.to_path_buf(),
-        reason: e,
-    };
-    write_atomic(out, |f| {
-        let mut w = ArrowWriter::try_new(
-            f.try_clone().map_err(|e| Error::Write {
-                file: out.to_path_buf(),
-                source: e,
-            })?,
-            schema.clone(),
-            Some(writer_properties(meta_json)),
-        )
-        .map_err(|e| perr(e.to_string()))?;
-        let mut pending: Vec<SegmentRow> = Vec::new();
-        for (id, b) in blocks.into_iter().enumerate() {
-            let crc = crate::pack::checksum(&b.frame);
-            let mut frame = Some(b.frame);
-            for mut r in b.rows {
-                r.block = id as u32;
-                if let Some(fr) = frame.take() {
-                    r.payload = Some(fr);
-                    r.checksum = Some(crc);
-                }
-                pending.push(r);
-            }
-            if pending.len() >= READ_BATCH_ROWS {
-                w.write(&rows_to_batch(&pending, &schema).map_err(perr)?)
-                    .map_err(|e| perr(e.to_string()))?;
-                pending.clear();
-            }
-        }
-        if !pending.is_empty() {
-            w.write(&rows_to_batch(&pending, &schema).map_err(perr)?)
-                .map_err(|e| perr(e.to_string()))?;
-        }
-        w.close().map_err(|e| perr(e.to_string()))?;
-        Ok(())
-    })?;
-    let (digest, size) = sha256_file(out)?;
-    let name = out
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_default();
-    write_atomic(&digest_path(out), |f| {
-        writeln!(f, "{digest}  {name}").map_err(|e| Error::Write {
-            file: digest_path(out),
+/// An archive being written: blocks are appended in order; [`ArchiveWriter::finish`] adds the
+/// metadata, closes, fsyncs and renames the file into place and writes the digest beside it.
+/// Dropped unfinished, it removes its temporary file and publishes nothing.
+pub struct ArchiveWriter {
+    out: PathBuf,
+    tmp: PathBuf,
+    writer: Option<ArrowWriter<File>>,
+    schema: Arc<Schema>,
+    pending: Vec<SegmentRow>,
+    next_block: u32,
+    rows: u64,
+}
+
+impl ArchiveWriter {
+    /// Start writing `out` (under a temporary name in the same folder).
+    pub fn create(out: &Path) -> Result<Self> {
+        let tmp = temp_path(out);
+        let file = File::create(&tmp).map_err(|e| Error::Write {
+            file: out.to_path_buf(),
             source: e,
+        })?;
+        let schema = Arc::new(archive_schema());
+        let writer =
+            ArrowWriter::try_new(file, schema.clone(), Some(writer_properties())).map_err(|e| {
+                Error::WriteParquet {
+                    file: out.to_path_buf(),
+                    reason: e.to_string(),
+                }
+            });
+        let writer = match writer {
+            Ok(w) => w,
+            Err(e) => {
+                let _ = std::fs::remove_file(&tmp);
+                return Err(e);
+            }
+        };
+        Ok(ArchiveWriter {
+            out: out.to_path_buf(),
+            tmp,
+            writer: Some(writer),
+            schema,
+            pending: Vec::new(),
+            next_block: 0,
+            rows: 0,
         })
-    })?;
-    Ok(size)
+    }
+
+    fn perr(&self, e: impl ToString) -> Error {
+        Error::WriteParquet {
+            file: self.out.clone(),
+            reason: e.to_string(),
+        }
+    }
+
+    /// Append one block (its rows get the next block number).
+    pub fn push(&mut self, b: EncodedBlock) -> Result<()> {
+        let crc = crate::pack::checksum(&b.frame);
+        let mut frame = Some(b.frame);
+        for mut r in b.rows {
+            r.block = self.next_block;
+            if let Some(fr) = frame.take() {
+                r.payload = Some(fr);
+                r.checksum = Some(crc);
+            }
+            self.pending.push(r);
+        }
+        self.next_block += 1;
+        if self.pending.len() >= READ_BATCH_ROWS {
+            self.write_pending()?;
+        }
+        Ok(())
+    }
+
+    fn write_pending(&mut self) -> Result<()> {
+        if self.pending.is_empty() {
+            return Ok(());
+        }
+        let batch = rows_to_batch(&self.pending, &self.schema).map_err(|e| self.perr(e))?;
+        self.rows += self.pending.len() as u64;
+        self.pending.clear();
+        let w = self.writer.as_mut().ok_or_else(|| Error::WriteParquet {
+            file: self.out.clone(),
+            reason: "writer already closed".into(),
+        })?;
+        w.write(&batch).map_err(|e| Error::WriteParquet {
+            file: self.out.clone(),
+            reason: e.to_string(),
+        })
+    }
+
+    /// Finish: metadata, close, fsync, rename, fsync the folder, digest. Returns the size.
+    pub fn finish(mut self, meta: &ArchiveMeta) -> Result<u64> {
+        self.write_pending()?;
+        let meta_json = serde_json::to_string(meta).map_err(|e| self.perr(e))?;
+        let mut w = self
+            .writer
+            .take()
+            .ok_or_else(|| self.perr("writer already closed"))?;
+        w.append_key_value_metadata(KeyValue::new(KEY_FORMAT.into(), FORMAT_VERSION.to_string()));
+        w.append_key_value_metadata(KeyValue::new(KEY_META.into(), meta_json));
+        let result = (|| {
+            let file = w.into_inner().map_err(|e| self.perr(e))?;
+            let werr = |e: std::io::Error| Error::Write {
+                file: self.out.clone(),
+                source: e,
+            };
+            // A failed fsync means the data may not be on disk: fail this output, never retry.
+            file.sync_all().map_err(werr)?;
+            drop(file);
+            std::fs::rename(&self.tmp, &self.out).map_err(werr)?;
+            sync_dir(&self.out).map_err(werr)
+        })();
+        if let Err(e) = result {
+            let _ = std::fs::remove_file(&self.tmp);
+            return Err(e);
+        }
+        let (digest, size) = sha256_file(&self.out)?;
+        let name = self
+            .out
+            .file_name()
+            .map(|n| n.to_string_lossy().into_owned())
+            .unwrap_or_default();
+        let dp = digest_path(&self.out);
+        write_atomic(&dp, |f| {
+            writeln!(f, "{digest}  {name}").map_err(|e| Error::Write {
+                file: dp.clone(),
+                source: e,
+            })
+        })?;
+        Ok(size)
+    }
+}
+
+impl Drop for ArchiveWriter {
+    fn drop(&mut self) {
+        if self.writer.is_some() {
+            // Not finished: publish nothing.
+            self.writer = None;
+            let _ = std::fs::remove_file(&self.tmp);
+        }
+    }
 }
 
 /// An archive read back.

@@ -12,13 +12,13 @@ use rayon::prelude::*;
 use serde::Serialize;
 
 use crate::archive::{self, ArchiveMeta, ChannelMeta, SegmentRow, SourceMeta};
-use crate::assemble::{assemble, ChannelSamples, Run};
+use crate::assemble::{sort_channel, ChannelAssembler, ChannelSamples, Run, RunEvent, StreamError};
 use crate::error::{Error, Result};
 use crate::fit::{error_to_f32, fit_segment, Basis, FitPlan, Prev, SegmentInput};
 use crate::options::{Budget, Settings};
 use crate::pack::{encode_block, Block, BlockTimes, SegmentRecord, Special};
-use crate::read::Source;
-use crate::segment::{plan_segments, FundamentalSetting, PlannedSegment, SegmentPlan};
+use crate::read::{ChannelInfo, Source};
+use crate::segment::{plan_segments, FundamentalSetting, PlannedSegment, Planner, SegmentPlan};
 use crate::signal::{amplitude_phase, thd, RealFft, Transform, ValueType};
 
 /// Harmonics whose amplitude and phase become derived columns.
@@ -277,7 +277,207 @@ pub struct JobControl {
     pub progress: bool,
 }
 
-/// Encode one Parquet source into an archive.
+/// Samples of finished blocks fitted together in one parallel batch.
+pub const FIT_BATCH_SAMPLES: usize = 1 << 21;
+
+/// A block ready to be fitted: its own copy of the samples and its segments (starts relative
+/// to the block).
+struct BlockJob {
+    channel: usize,
+    run: Run,
+    segs: Vec<PlannedSegment>,
+}
+
+/// The run of a channel being encoded.
+struct RunState {
+    /// Samples of the run from run index `base` on.
+    buf: Run,
+    base: usize,
+    planner: Planner,
+    pending: Vec<PlannedSegment>,
+}
+
+/// One channel being encoded as its samples arrive.
+struct ChannelEncoder {
+    info: ChannelInfo,
+    asm: ChannelAssembler,
+    run: Option<RunState>,
+    meta: ChannelMeta,
+    last_time: Option<i64>,
+    finished: bool,
+}
+
+impl ChannelEncoder {
+    fn new(source: &Path, info: ChannelInfo, settings: &Settings) -> Self {
+        ChannelEncoder {
+            asm: ChannelAssembler::new(source, &info.name, settings.sample_rate_hz),
+            meta: ChannelMeta::new(&info, None, 0, 0, false),
+            info,
+            run: None,
+            last_time: None,
+            finished: false,
+        }
+    }
+
+    /// Earliest time a block of this channel not yet handed out can start.
+    fn front_time(&self) -> i64 {
+        if self.finished {
+            return i64::MAX;
+        }
+        let held = self.asm.held_first_time();
+        let buf = self.run.as_ref().and_then(|r| r.buf.times.first().copied());
+        match (held, buf) {
+            (Some(a), Some(b)) => a.min(b),
+            (Some(a), None) | (None, Some(a)) => a,
+            (None, None) => self.last_time.map_or(i64::MIN, |t| t.saturating_add(1)),
+        }
+    }
+
+    fn push(
+        &mut self,
+        ci: usize,
+        samples: ChannelSamples,
+        settings: &Settings,
+        jobs: &mut Vec<BlockJob>,
+    ) -> std::result::Result<(), StreamError> {
+        self.meta.rows += samples.len() as u64;
+        self.last_time = samples.times.last().copied().or(self.last_time);
+        let events = self.asm.push(samples)?;
+        self.handle(ci, events, settings, jobs);
+        Ok(())
+    }
+
+    fn finish(&mut self, ci: usize, settings: &Settings, jobs: &mut Vec<BlockJob>) {
+        let events = self.asm.finish();
+        self.handle(ci, events, settings, jobs);
+        self.meta.sample_rate_hz = self.asm.sample_rate();
+        self.finished = true;
+    }
+
+    fn handle(
+        &mut self,
+        ci: usize,
+        events: Vec<RunEvent>,
+        settings: &Settings,
+        jobs: &mut Vec<BlockJob>,
+    ) {
+        for e in events {
+            match e {
+                RunEvent::Samples(r) => {
+                    let rate = self.asm.sample_rate();
+                    let run = self.run.get_or_insert_with(|| {
+                        let mut seg = settings.segment_settings(rate.unwrap_or(1.0));
+                        if rate.is_none() {
+                            seg.fundamental = FundamentalSetting::None;
+                        }
+                        RunState {
+                            buf: Run {
+                                times: Vec::new(),
+                                values: Vec::new(),
+                                specials: Vec::new(),
+                            },
+                            base: 0,
+                            planner: Planner::new(seg),
+                            pending: Vec::new(),
+                        }
+                    });
+                    let off = run.buf.times.len();
+                    run.buf.times.extend(r.times);
+                    run.buf.values.extend(r.values);
+                    run.buf
+                        .specials
+                        .extend(r.specials.into_iter().map(|(i, k)| (i + off, k)));
+                    advance_run(ci, run, false, settings, jobs);
+                }
+                RunEvent::End => {
+                    if let Some(mut run) = self.run.take() {
+                        advance_run(ci, &mut run, true, settings, jobs);
+                        self.meta.runs += 1;
+                        self.meta.note_plan(&run.planner.into_plan(Vec::new()));
+                    }
+                }
+            }
+        }
+    }
+}
+
+/// Plan what the run's new samples allow, hand out finished blocks, drop consumed samples.
+fn advance_run(
+    ci: usize,
+    run: &mut RunState,
+    complete: bool,
+    settings: &Settings,
+    jobs: &mut Vec<BlockJob>,
+) {
+    let segs = run.planner.advance(&run.buf.values, run.base, complete);
+    run.pending.extend(segs);
+    // Group into blocks exactly as `block_ranges` does; the last group waits for more
+    // segments unless the run is complete.
+    loop {
+        let ranges = block_ranges(
+            &run.pending,
+            settings.block_segments,
+            settings.block_samples,
+        );
+        let Some(first) = ranges.first().cloned() else {
+            break;
+        };
+        if ranges.len() == 1 && !complete {
+            // Is the single group already full?
+            let n: usize = run.pending.iter().map(|s| s.len).sum();
+            let full = run.pending.len() >= settings.block_segments || n >= settings.block_samples;
+            if !full {
+                break;
+            }
+        }
+        let group: Vec<PlannedSegment> = run.pending.drain(first).collect();
+        let lo = group[0].start - run.base;
+        let hi = group[group.len() - 1].start + group[group.len() - 1].len - run.base;
+        let sp_lo = run.buf.specials.partition_point(|s| s.0 < lo);
+        let sp_hi = run.buf.specials.partition_point(|s| s.0 < hi);
+        jobs.push(BlockJob {
+            channel: ci,
+            run: Run {
+                times: run.buf.times[lo..hi].to_vec(),
+                values: run.buf.values[lo..hi].to_vec(),
+                specials: run.buf.specials[sp_lo..sp_hi]
+                    .iter()
+                    .map(|&(i, k)| (i - lo, k))
+                    .collect(),
+            },
+            segs: group
+                .iter()
+                .map(|s| PlannedSegment {
+                    start: s.start - group[0].start,
+                    ..*s
+                })
+                .collect(),
+        });
+    }
+    // Drop samples no one needs any more.
+    let keep = run
+        .pending
+        .first()
+        .map_or(usize::MAX, |s| s.start)
+        .min(run.planner.keep_from())
+        .min(run.base + run.buf.times.len());
+    let drop = keep.saturating_sub(run.base);
+    if drop > 0 {
+        run.buf.times.drain(..drop);
+        run.buf.values.drain(..drop);
+        let sp = run.buf.specials.partition_point(|s| s.0 < drop);
+        run.buf.specials.drain(..sp);
+        run.buf.specials.iter_mut().for_each(|s| s.0 -= drop);
+        run.base += drop;
+    }
+}
+
+/// Blocks waiting to be written in canonical order: by start time, then channel name.
+type Ordered = BTreeMap<(i64, String), EncodedBlock>;
+
+/// Encode one Parquet source into an archive. Time-ordered sources stream with bounded
+/// memory; a source whose times go backwards within a channel is read again and sorted in
+/// memory. Both ways give the same bytes.
 pub fn encode_file(
     source: &Path,
     out: &Path,
@@ -286,17 +486,114 @@ pub fn encode_file(
 ) -> Result<EncodeSummary> {
     archive::refuse_same_file(source, out)?;
     let source_meta = SourceMeta::of(source)?;
+    match encode_pass(source, out, settings, control, &source_meta, false)? {
+        Some(summary) => Ok(summary),
+        None => encode_pass(source, out, settings, control, &source_meta, true)?.ok_or_else(|| {
+            Error::Layout {
+                file: source.to_path_buf(),
+                reason: "could not order the rows by time".into(),
+            }
+        }),
+    }
+}
+
+/// One pass over the source. `sort`: gather every channel in memory and sort it first.
+/// Returns `None` when streaming found rows out of time order.
+fn encode_pass(
+    source: &Path,
+    out: &Path,
+    settings: &Settings,
+    control: &JobControl,
+    source_meta: &SourceMeta,
+    sort: bool,
+) -> Result<Option<EncodeSummary>> {
     let mut src = Source::open(source, settings)?;
-    let mut samples: BTreeMap<usize, ChannelSamples> = BTreeMap::new();
-    let bar = progress_bar(control, src.total_rows, "reading");
+    let mut writer = archive::ArchiveWriter::create(out)?;
+    let fft = RealFft::shared();
+    let mut channels: Vec<ChannelEncoder> = Vec::new();
+    let mut gathered: Vec<ChannelSamples> = Vec::new();
+    let mut jobs: Vec<BlockJob> = Vec::new();
+    let mut ordered: Ordered = BTreeMap::new();
+    let mut last_written: Option<i64> = None;
+    let mut fits: Vec<FitPlan> = Vec::new();
+    let bar = progress_bar(
+        control,
+        src.total_rows,
+        if sort { "sorting" } else { "encoding" },
+    );
     while let Some(chunks) = src.next_chunks() {
         for c in chunks? {
             bar.inc(c.times.len() as u64);
-            samples.entry(c.channel).or_default().extend(c);
+            while channels.len() <= c.channel {
+                let info = src.schema.channels[channels.len()].clone();
+                channels.push(ChannelEncoder::new(source, info, settings));
+                gathered.push(ChannelSamples::default());
+            }
+            let ci = c.channel;
+            let mut s = ChannelSamples::default();
+            s.extend(c);
+            if sort {
+                gathered[ci].extend_samples(s);
+                continue;
+            }
+            // A channel whose first rows come before blocks already written: not time-ordered.
+            if channels[ci].last_time.is_none()
+                && last_written.is_some_and(|w| s.times.first().is_some_and(|&t| t < w))
+            {
+                return Ok(None);
+            }
+            match channels[ci].push(ci, s, settings, &mut jobs) {
+                Ok(()) => {}
+                Err(StreamError::NeedsSort) => return Ok(None),
+                Err(StreamError::Fatal(e)) => return Err(e),
+            }
+        }
+        if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
+            fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+            let watermark = channels
+                .iter()
+                .map(|c| c.front_time())
+                .min()
+                .unwrap_or(i64::MAX);
+            flush(
+                &mut ordered,
+                Some(watermark),
+                &mut writer,
+                &mut fits,
+                &mut last_written,
+            )?;
         }
     }
     bar.finish_and_clear();
-    let rows_read: u64 = samples.values().map(|s| s.len() as u64).sum();
+    if sort {
+        for (ci, s) in gathered.into_iter().enumerate() {
+            if s.is_empty() {
+                continue;
+            }
+            let name = channels[ci].info.name.clone();
+            let sorted = sort_channel(source, &name, s)?;
+            channels[ci].meta.sorted_on_read = true;
+            match channels[ci].push(ci, sorted, settings, &mut jobs) {
+                Ok(()) => {}
+                Err(StreamError::NeedsSort) => {
+                    unreachable!("a sorted channel never goes back in time")
+                }
+                Err(StreamError::Fatal(e)) => return Err(e),
+            }
+        }
+    }
+    for (ci, c) in channels.iter_mut().enumerate() {
+        c.finish(ci, settings, &mut jobs);
+    }
+    fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+    flush(
+        &mut ordered,
+        None,
+        &mut writer,
+        &mut fits,
+        &mut last_written,
+    )?;
+    let rows_read: u64 = channels.iter().map(|c| c.meta.rows).sum();
     if rows_read == 0 {
         return Err(Error::Empty {
             file: source.to_path_buf(),
@@ -312,67 +609,87 @@ pub fn encode_file(
             }
         }
     }
-    // Channels in name order: the archive's row order does not depend on the source's.
-    let mut order: Vec<usize> = samples.keys().copied().collect();
-    order.sort_by(|&a, &b| {
-        src.schema.channels[a]
-            .name
-            .cmp(&src.schema.channels[b].name)
-    });
-    let fft = RealFft::shared();
-    let mut blocks: Vec<EncodedBlock> = Vec::new();
-    let mut channel_meta = Vec::new();
-    let bar = progress_bar(control, rows_read, "encoding");
-    for ci in order {
-        let info = src.schema.channels[ci].clone();
-        let Some(s) = samples.remove(&ci) else {
-            continue;
-        };
-        let n = s.len() as u64;
-        let ch = assemble(source, info.clone(), s, settings.sample_rate_hz)?;
-        let params = RunParams {
-            channel: &info.name,
-            value_type: info.value_type,
-            sample_rate: ch.sample_rate,
-            budget: settings.budget_for(&info.name),
-            settings,
-            fft,
-        };
-        let mut meta = ChannelMeta::new(&info, ch.sample_rate, ch.runs.len(), n, ch.was_sorted);
-        for run in &ch.runs {
-            let enc = encode_run(run, &params)?;
-            meta.note_plan(&enc.plan);
-            blocks.extend(enc.blocks);
-        }
-        bar.inc(n);
-        channel_meta.push(meta);
-    }
-    bar.finish_and_clear();
-    let segments = blocks.iter().map(|b| b.rows.len()).sum();
-    let worst = blocks
+    let mut channel_meta: Vec<ChannelMeta> = channels
+        .into_iter()
+        .filter(|c| c.meta.rows > 0)
+        .map(|c| c.meta)
+        .collect();
+    channel_meta.sort_by(|a, b| a.name.cmp(&b.name));
+    let segments = fits.len();
+    let worst = fits
         .iter()
-        .flat_map(|b| b.fits.iter())
         .filter(|f| f.budget_rms > 0.0)
         .map(|f| f.error_rms / f.budget_rms)
         .fold(0.0, f64::max);
     let meta = ArchiveMeta::new(
-        source_meta,
+        source_meta.clone(),
         settings,
         src.schema.clone(),
         channel_meta.clone(),
     );
-    let archive_bytes = archive::write_archive(out, &meta, blocks)?;
-    Ok(EncodeSummary {
+    let archive_bytes = writer.finish(&meta)?;
+    Ok(Some(EncodeSummary {
         source: source.to_path_buf(),
         archive: out.to_path_buf(),
         rows: rows_read,
         channels: channel_meta.len(),
         segments,
-        source_bytes: meta.source.bytes,
+        source_bytes: source_meta.bytes,
         archive_bytes,
         worst_error_over_budget: worst,
         fundamentals: channel_meta,
-    })
+    }))
+}
+
+/// Fit the waiting blocks in parallel and file them in canonical order.
+fn fit_jobs(
+    jobs: &mut Vec<BlockJob>,
+    channels: &[ChannelEncoder],
+    settings: &Settings,
+    fft: &dyn Transform,
+    ordered: &mut Ordered,
+) -> Result<()> {
+    let done = std::mem::take(jobs)
+        .into_par_iter()
+        .map(|j| {
+            let c = &channels[j.channel];
+            let p = RunParams {
+                channel: &c.info.name,
+                value_type: c.info.value_type,
+                sample_rate: c.asm.sample_rate(),
+                budget: settings.budget_for(&c.info.name),
+                settings,
+                fft,
+            };
+            encode_block_of(&j.run, &j.segs, &p)
+        })
+        .collect::<Result<Vec<_>>>()?;
+    for b in done {
+        if let Some(r) = b.rows.first() {
+            ordered.insert((r.start_ns, r.channel.clone()), b);
+        }
+    }
+    Ok(())
+}
+
+/// Write the blocks that start before `watermark` (all when `None`), in order.
+fn flush(
+    ordered: &mut Ordered,
+    watermark: Option<i64>,
+    writer: &mut archive::ArchiveWriter,
+    fits: &mut Vec<FitPlan>,
+    last_written: &mut Option<i64>,
+) -> Result<()> {
+    let keep = match watermark {
+        Some(w) => ordered.split_off(&(w, String::new())),
+        None => BTreeMap::new(),
+    };
+    for ((start, _), b) in std::mem::replace(ordered, keep) {
+        *last_written = Some(start);
+        fits.extend(b.fits.iter().cloned());
+        writer.push(b)?;
+    }
+    Ok(())
 }
 
 /// A progress bar on stderr, drawn only when it is a terminal and progress is on.

@@ -30,6 +30,10 @@ pub const DEFAULT_FALLBACK_SEGMENT_SECONDS: f64 = 0.2;
 /// Below this autocorrelation at the estimated period a run counts as not periodic.
 pub const DEFAULT_MIN_CONFIDENCE: f64 = 0.5;
 
+/// Highest fundamental the automatic estimate looks for: shaft rates and line frequencies of
+/// rotating machines lie well below it (give the frequency for anything faster).
+pub const MAX_AUTO_FUNDAMENTAL_HZ: f64 = 1000.0;
+
 /// Tracking windows span at least this many estimated cycles.
 pub const TRACK_MIN_CYCLES: f64 = 8.0;
 
@@ -177,11 +181,8 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
     // periodic in P has both correlate at P.
     let diff: Vec<f64> = xc.windows(2).map(|w| w[1] - w[0]).collect();
     let acfs = [normalized_acf(&xc, m), normalized_acf(&diff, m)];
-    let corr = |lag: f64| -> f64 {
-        acfs.iter()
-            .map(|a| interpolate(a, lag))
-            .fold(f64::NEG_INFINITY, f64::max)
-    };
+    let corr =
+        |lag: f64| -> (f64, f64) { (interpolate(&acfs[0], lag), interpolate(&acfs[1], lag)) };
     // Candidates: the strongest few spectral peaks and their sub-multiples (the fundamental
     // may be weaker than a harmonic, and a slow drift may hold the largest peak).
     let mut peaks: Vec<usize> = (k_lo..=k_hi)
@@ -189,7 +190,7 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
         .collect();
     peaks.sort_by(|&a, &b| mag[b].total_cmp(&mag[a]).then(a.cmp(&b)));
     peaks.truncate(PEAK_CANDIDATES);
-    let mut cands: Vec<(f64, f64)> = Vec::new();
+    let mut cands: Vec<(f64, (f64, f64))> = Vec::new();
     for &k in &peaks {
         let peak_hz = refine_peak(&mag, k) * bin_hz;
         let peak_hz = refine_by_phase(&xc, fs, peak_hz).unwrap_or(peak_hz);
@@ -224,17 +225,37 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
             }
         }
     }
+    // Score by the signal's own correlation; only when nothing correlates there (slow wander
+    // hiding the period) by the difference's as well.
+    let raw_best = cands
+        .iter()
+        .map(|c| c.1 .0)
+        .fold(f64::NEG_INFINITY, f64::max);
+    let use_diff = raw_best < DEFAULT_MIN_CONFIDENCE;
+    let cands: Vec<(f64, f64)> = cands
+        .iter()
+        .map(|&(f, (r, d))| (f, if use_diff { r.max(d) } else { r }))
+        .collect();
     let best = cands.iter().map(|c| c.1).fold(f64::NEG_INFINITY, f64::max);
     if !(best > 0.0) {
         return None;
     }
-    // The highest frequency (shortest period) whose correlation is close to the best: a
-    // signal periodic in P also correlates at 2P, 3P, …
+    // The best-correlated candidate, unless a near-integer multiple of it correlates almost as
+    // well: a signal periodic in P also correlates at 2P, 3P, …, and the shortest such period
+    // is the fundamental's.
+    let (fb, cb) = cands
+        .iter()
+        .copied()
+        .max_by(|a, b| a.1.total_cmp(&b.1).then(a.0.total_cmp(&b.0)))?;
     let (hz, conf) = cands
         .iter()
-        .filter(|c| c.1 >= 0.9 * best)
         .copied()
-        .max_by(|a, b| a.0.total_cmp(&b.0))?;
+        .filter(|&(f, c)| {
+            let m = f / fb;
+            c >= 0.9 * cb && m >= 1.5 && (m - m.round()).abs() < 0.03 * m.round()
+        })
+        .max_by(|a, b| a.0.total_cmp(&b.0))
+        .unwrap_or((fb, cb));
     (hz.is_finite() && hz > 0.0).then_some(Estimate {
         hz,
         confidence: conf.clamp(-1.0, 1.0),
@@ -483,7 +504,7 @@ impl Planner {
             let fs = self.settings.sample_rate;
             let head = longest_finite(&x[at(0)..at(avail.min(GLOBAL_ESTIMATE_SAMPLES))]);
             let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
-            let global = estimate_fundamental(head, fs, f_min, fs / 2.0)
+            let global = estimate_fundamental(head, fs, f_min, MAX_AUTO_FUNDAMENTAL_HZ)
                 .filter(|e| e.confidence >= self.settings.min_confidence && fs / e.hz >= 2.0);
             self.mode = match global {
                 None => Mode::Fixed {
