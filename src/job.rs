@@ -522,6 +522,7 @@ fn encode_pass(
         if sort { "sorting" } else { "encoding" },
     );
     while let Some(chunks) = src.next_chunks() {
+        crate::stop::check()?;
         for c in chunks? {
             bar.inc(c.times.len() as u64);
             while channels.len() <= c.channel {
@@ -585,6 +586,7 @@ fn encode_pass(
     for (ci, c) in channels.iter_mut().enumerate() {
         c.finish(ci, settings, &mut jobs);
     }
+    crate::stop::check()?;
     fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
     flush(
         &mut ordered,
@@ -627,6 +629,7 @@ fn encode_pass(
         src.schema.clone(),
         channel_meta.clone(),
     );
+    crate::stop::check()?;
     let archive_bytes = writer.finish(&meta)?;
     Ok(Some(EncodeSummary {
         source: source.to_path_buf(),

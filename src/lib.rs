@@ -64,6 +64,7 @@ pub mod read;
 pub mod report;
 pub mod segment;
 pub mod signal;
+pub mod stop;
 pub mod verify;
 pub mod write;
 

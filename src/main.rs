@@ -265,6 +265,9 @@ fn run(cli: Cli) -> Result<i32, Error> {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    if let Err(e) = cyclarc::stop::install() {
+        eprintln!("cyclarc: cannot install the SIGTERM handler: {e}");
+    }
     if let Some(n) = cli.threads {
         if let Err(e) = rayon::ThreadPoolBuilder::new()
             .num_threads(n.max(1))

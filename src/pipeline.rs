@@ -262,6 +262,7 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
         let settings = opts.resolve()?;
         let fingerprint = settings.fingerprint();
         for src in expand(base, path, g)? {
+            crate::stop::check()?;
             let name = archive_name(&src);
             if let Some(other) = names_used.get(&name) {
                 outcomes.push(SourceOutcome::Failed {
@@ -315,6 +316,9 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
                     verified,
                 })
             })();
+            if let Err(Error::Interrupted) = outcome {
+                return Err(Error::Interrupted);
+            }
             outcomes.push(outcome.unwrap_or_else(|e| SourceOutcome::Failed {
                 source: src.clone(),
                 code: e.exit_code(),

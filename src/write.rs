@@ -194,6 +194,7 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
                             ],
                         )
                         .map_err(|e| perr(e.to_string()))?;
+                        crate::stop::check()?;
                         w.write(&batch).map_err(|e| perr(e.to_string()))?;
                         rows += n as u64;
                         start = end;
@@ -255,6 +256,7 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
                     }
                     let batch = RecordBatch::try_new(arrow_schema.clone(), arrays)
                         .map_err(|e| perr(e.to_string()))?;
+                    crate::stop::check()?;
                     w.write(&batch).map_err(|e| perr(e.to_string()))?;
                     rows += (end - start) as u64;
                     start = end;
