@@ -48,6 +48,21 @@ impl ChannelSamples {
             .extend(c.specials.into_iter().map(|(i, k)| (base + i, k)));
     }
 
+    /// A copy of samples `r` (specials re-indexed).
+    pub fn slice(&self, r: std::ops::Range<usize>) -> ChannelSamples {
+        let lo = self.specials.partition_point(|s| s.0 < r.start);
+        let hi = self.specials.partition_point(|s| s.0 < r.end);
+        ChannelSamples {
+            times: self.times[r.clone()].to_vec(),
+            values: self.values[r.clone()].to_vec(),
+            rows: self.rows[r.clone()].to_vec(),
+            specials: self.specials[lo..hi]
+                .iter()
+                .map(|&(i, k)| (i - r.start, k))
+                .collect(),
+        }
+    }
+
     /// Number of samples.
     pub fn len(&self) -> usize {
         self.times.len()

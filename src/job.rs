@@ -277,6 +277,9 @@ pub struct JobControl {
     pub progress: bool,
 }
 
+/// Samples of a sorted channel handed to its encoder at a time.
+const SORTED_PIECE: usize = 1 << 20;
+
 /// Samples of finished blocks fitted together in one parallel batch.
 pub const FIT_BATCH_SAMPLES: usize = 1 << 21;
 
@@ -572,18 +575,28 @@ fn encode_pass(
                 continue;
             }
             let name = channels[ci].info.name.clone();
+            channels[ci].meta.sorted_on_read = !s.times.windows(2).all(|w| w[0] < w[1]);
             let sorted = sort_channel(source, &name, s)?;
-            channels[ci].meta.sorted_on_read = true;
-            match channels[ci].push(ci, sorted, settings, &mut jobs) {
-                Ok(()) => {}
-                Err(StreamError::NeedsSort) => {
-                    unreachable!("a sorted channel never goes back in time")
+            // Feed the sorted channel in pieces, fitting as blocks fill up, so that working
+            // copies stay small next to the sorted samples.
+            for at in (0..sorted.len()).step_by(SORTED_PIECE) {
+                crate::stop::check()?;
+                let piece = sorted.slice(at..(at + SORTED_PIECE).min(sorted.len()));
+                match channels[ci].push(ci, piece, settings, &mut jobs) {
+                    Ok(()) => {}
+                    Err(StreamError::NeedsSort) => {
+                        unreachable!("a sorted channel never goes back in time")
+                    }
+                    Err(StreamError::Fatal(e)) => return Err(e),
                 }
-                Err(StreamError::Fatal(e)) => return Err(e),
+                if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
+                    fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+                }
             }
+            channels[ci].finish(ci, settings, &mut jobs);
         }
     }
-    for (ci, c) in channels.iter_mut().enumerate() {
+    for (ci, c) in channels.iter_mut().enumerate().filter(|(_, c)| !c.finished) {
         c.finish(ci, settings, &mut jobs);
     }
     crate::stop::check()?;
