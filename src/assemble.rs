@@ -30,16 +30,20 @@ pub struct ChannelSamples {
 impl ChannelSamples {
     /// Append a chunk read from the source.
     pub fn extend(&mut self, c: ChannelChunk) {
-        let base = self.values.len();
-        self.times.extend_from_slice(&c.times);
-        self.values.extend_from_slice(&c.values);
-        self.rows.extend_from_slice(&c.rows);
-        self.specials
-            .extend(c.specials.into_iter().map(|(i, k)| (base + i, k)));
+        self.extend_samples(ChannelSamples {
+            times: c.times,
+            values: c.values,
+            rows: c.rows,
+            specials: c.specials,
+        });
     }
 
     /// Append samples (indices of specials relative to `c`).
     pub fn extend_samples(&mut self, c: ChannelSamples) {
+        if self.is_empty() {
+            *self = c;
+            return;
+        }
         let base = self.values.len();
         self.times.extend_from_slice(&c.times);
         self.values.extend_from_slice(&c.values);
