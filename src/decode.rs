@@ -263,15 +263,25 @@ pub fn decode_channels(
     use rayon::prelude::*;
     let spans = block_spans(&archive.rows);
     let wanted = |name: &str| channels.is_empty() || channels.iter().any(|c| c == name);
-    let selected: Vec<_> = spans
-        .into_iter()
-        .filter(|s| wanted(&archive.rows[s.start].channel))
-        .filter(|s| {
-            // Blocks entirely before `from` can be skipped: the next block's start bounds them.
-            let first = archive.rows[s.start].start_ns;
-            to.is_none_or(|t| first < t)
-        })
-        .collect();
+    // A block starting at or after `to` is outside the range; so is a block whose channel's
+    // next block starts at or before `from` (all its samples come earlier).
+    let mut next_start: std::collections::HashMap<&str, i64> = std::collections::HashMap::new();
+    let mut selected = Vec::new();
+    for s in spans.into_iter().rev() {
+        let row = &archive.rows[s.start];
+        if !wanted(&row.channel) {
+            continue;
+        }
+        let before_from = match (from, next_start.get(row.channel.as_str())) {
+            (Some(f), Some(&n)) => n <= f,
+            _ => false,
+        };
+        next_start.insert(row.channel.as_str(), row.start_ns);
+        if !before_from && to.is_none_or(|t| row.start_ns < t) {
+            selected.push(s);
+        }
+    }
+    selected.reverse();
     let unpacked: Vec<UnpackedBlock> = selected
         .into_par_iter()
         .map(|s| unpack_block(archive, s, fft))
