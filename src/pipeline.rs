@@ -162,10 +162,31 @@ pub fn load(path: &Path) -> Result<PipelineFile> {
 }
 
 fn resolve_rel(base: &Path, p: &Path) -> PathBuf {
-    if p.is_absolute() {
+    let joined = if p.is_absolute() {
         p.to_path_buf()
     } else {
         base.join(p)
+    };
+    // Fold `a/../b` into `b` so that paths in reports read naturally.
+    let mut out = PathBuf::new();
+    for c in joined.components() {
+        match c {
+            std::path::Component::ParentDir
+                if matches!(
+                    out.components().next_back(),
+                    Some(std::path::Component::Normal(_))
+                ) =>
+            {
+                out.pop();
+            }
+            std::path::Component::CurDir => {}
+            other => out.push(other.as_os_str()),
+        }
+    }
+    if out.as_os_str().is_empty() {
+        PathBuf::from(".")
+    } else {
+        out
     }
 }
 
