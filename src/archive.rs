@@ -20,7 +20,7 @@
 //! | `thd` | float32, null | THD of harmonics 2–50 over the fundamental (IEEE 519), from the stored coefficients |
 //! | `block` | int32 | block number; a block is consecutive segments of one channel run |
 //! | `payload` | binary, null | the block's zstd frame, on the block's first row only |
-//! | `checksum` | uint32, null | CRC-32 of `payload`, on the block's first row only |
+//! | `checksum` | uint32, null | CRC-32 of `payload` and of every column of the block's rows, on the block's first row only |
 //!
 //! Derived columns (`rms`, harmonics, `thd`) keep 16 significant bits. File metadata holds
 //! `cyclarc.format` (`MAJOR.MINOR`, now [`FORMAT_VERSION`]) and `cyclarc.meta` (JSON: writer
@@ -72,6 +72,42 @@ pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
 pub const KEY_FORMAT: &str = "cyclarc.format";
 /// Key of the JSON metadata.
 pub const KEY_META: &str = "cyclarc.meta";
+/// Key of the CRC-32 (hex) of the JSON metadata.
+pub const KEY_META_CRC: &str = "cyclarc.meta.crc32";
+
+/// The CRC-32 stored with a block: over its compressed frame and every column of its rows
+/// (in a fixed byte layout), so that a changed value anywhere in the block is detected.
+pub fn block_checksum(frame: &[u8], rows: &[SegmentRow]) -> u32 {
+    let mut h = crc32fast::Hasher::new();
+    h.update(frame);
+    let opt32 = |h: &mut crc32fast::Hasher, v: Option<u32>| match v {
+        Some(v) => {
+            h.update(&[1]);
+            h.update(&v.to_le_bytes());
+        }
+        None => h.update(&[0]),
+    };
+    for r in rows {
+        h.update(&(r.channel.len() as u64).to_le_bytes());
+        h.update(r.channel.as_bytes());
+        h.update(&r.start_ns.to_le_bytes());
+        h.update(&r.samples.to_le_bytes());
+        h.update(&[r.basis.tag()]);
+        opt32(&mut h, r.order);
+        opt32(&mut h, r.cycles);
+        for v in [r.budget_rms, r.error_rms, r.sample_rate_hz, r.rms] {
+            h.update(&v.to_bits().to_le_bytes());
+        }
+        opt32(&mut h, r.fundamental_hz.map(f32::to_bits));
+        for hm in &r.harmonics {
+            opt32(&mut h, hm.map(|p| p.0.to_bits()));
+            opt32(&mut h, hm.map(|p| p.1.to_bits()));
+        }
+        opt32(&mut h, r.thd.map(f32::to_bits));
+        h.update(&r.block.to_le_bytes());
+    }
+    h.finalize()
+}
 
 /// One archive row (one segment).
 #[derive(Debug, Clone, PartialEq)]
@@ -534,10 +570,13 @@ impl ArchiveWriter {
 
     /// Append one block (its rows get the next block number).
     pub fn push(&mut self, b: EncodedBlock) -> Result<()> {
-        let crc = crate::pack::checksum(&b.frame);
-        let mut frame = Some(b.frame);
-        for mut r in b.rows {
+        let mut rows = b.rows;
+        for r in rows.iter_mut() {
             r.block = self.next_block;
+        }
+        let crc = block_checksum(&b.frame, &rows);
+        let mut frame = Some(b.frame);
+        for mut r in rows {
             if let Some(fr) = frame.take() {
                 r.payload = Some(fr);
                 r.checksum = Some(crc);
@@ -577,6 +616,10 @@ impl ArchiveWriter {
             .take()
             .ok_or_else(|| self.perr("writer already closed"))?;
         w.append_key_value_metadata(KeyValue::new(KEY_FORMAT.into(), FORMAT_VERSION.to_string()));
+        w.append_key_value_metadata(KeyValue::new(
+            KEY_META_CRC.into(),
+            format!("{:08x}", crc32fast::hash(meta_json.as_bytes())),
+        ));
         w.append_key_value_metadata(KeyValue::new(KEY_META.into(), meta_json));
         let result = (|| {
             let file = w.into_inner().map_err(|e| self.perr(e))?;
@@ -685,8 +728,13 @@ pub fn read_archive(path: &Path) -> Result<Archive> {
         )
     })?;
     check_version(path, &format)?;
-    let meta: ArchiveMeta = serde_json::from_str(&get(KEY_META).unwrap_or_default())
-        .map_err(|e| damaged(path, format!("metadata: {e}")))?;
+    let meta_json = get(KEY_META).unwrap_or_default();
+    let meta_crc = get(KEY_META_CRC).unwrap_or_default();
+    if meta_crc != format!("{:08x}", crc32fast::hash(meta_json.as_bytes())) {
+        return Err(damaged(path, "file metadata checksum mismatch"));
+    }
+    let meta: ArchiveMeta =
+        serde_json::from_str(&meta_json).map_err(|e| damaged(path, format!("metadata: {e}")))?;
     check_version(path, &meta.format)?;
     let mut column_bytes: Vec<(String, u64)> = Vec::new();
     for rg in md.row_groups() {

@@ -179,8 +179,10 @@ pub fn unpack_block(
             "block {id}: payload on a row that does not start the block"
         ));
     }
-    if crate::pack::checksum(frame) != crc {
-        return Err(format!("block {id}: checksum mismatch (payload damaged)"));
+    if crate::archive::block_checksum(frame, all) != crc {
+        return Err(format!(
+            "block {id}: checksum mismatch (payload or row values damaged)"
+        ));
     }
     let block = crate::pack::decode_block(frame).map_err(|e| format!("block {id}: {e}"))?;
     let channel = archive
