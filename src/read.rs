@@ -81,8 +81,55 @@ pub enum NameType {
     Utf8,
     /// LargeUtf8.
     LargeUtf8,
-    /// Dictionary-encoded Utf8 (Int32 keys).
-    Dictionary,
+    /// Dictionary-encoded strings.
+    Dictionary {
+        /// Key type.
+        key: DictKey,
+        /// Whether the values are LargeUtf8 (else Utf8).
+        large: bool,
+    },
+}
+
+/// Key type of a dictionary-encoded channel column.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
+#[serde(rename_all = "lowercase")]
+#[allow(missing_docs)]
+pub enum DictKey {
+    Int8,
+    Int16,
+    Int32,
+    Int64,
+    UInt8,
+    UInt16,
+    UInt32,
+    UInt64,
+}
+
+impl NameType {
+    /// The Arrow type.
+    pub fn data_type(self) -> DataType {
+        match self {
+            NameType::Utf8 => DataType::Utf8,
+            NameType::LargeUtf8 => DataType::LargeUtf8,
+            NameType::Dictionary { key, large } => DataType::Dictionary(
+                Box::new(match key {
+                    DictKey::Int8 => DataType::Int8,
+                    DictKey::Int16 => DataType::Int16,
+                    DictKey::Int32 => DataType::Int32,
+                    DictKey::Int64 => DataType::Int64,
+                    DictKey::UInt8 => DataType::UInt8,
+                    DictKey::UInt16 => DataType::UInt16,
+                    DictKey::UInt32 => DataType::UInt32,
+                    DictKey::UInt64 => DataType::UInt64,
+                }),
+                Box::new(if large {
+                    DataType::LargeUtf8
+                } else {
+                    DataType::Utf8
+                }),
+            ),
+        }
+    }
 }
 
 /// One channel of the source.
@@ -109,7 +156,8 @@ pub struct SourceSchema {
     pub name_type: Option<NameType>,
     /// Value column (long).
     pub value_column: Option<String>,
-    /// Channels in source order (wide: column order; long: order of first appearance).
+    /// Channels in source order (wide: column order; long: order of first appearance while
+    /// reading, name order in an archive's metadata).
     pub channels: Vec<ChannelInfo>,
 }
 
@@ -177,8 +225,22 @@ fn name_type_of(dt: &DataType) -> Option<NameType> {
     match dt {
         DataType::Utf8 => Some(NameType::Utf8),
         DataType::LargeUtf8 => Some(NameType::LargeUtf8),
-        DataType::Dictionary(_, v) if matches!(**v, DataType::Utf8 | DataType::LargeUtf8) => {
-            Some(NameType::Dictionary)
+        DataType::Dictionary(k, v) if matches!(**v, DataType::Utf8 | DataType::LargeUtf8) => {
+            let key = match **k {
+                DataType::Int8 => DictKey::Int8,
+                DataType::Int16 => DictKey::Int16,
+                DataType::Int32 => DictKey::Int32,
+                DataType::Int64 => DictKey::Int64,
+                DataType::UInt8 => DictKey::UInt8,
+                DataType::UInt16 => DictKey::UInt16,
+                DataType::UInt32 => DictKey::UInt32,
+                DataType::UInt64 => DictKey::UInt64,
+                _ => return None,
+            };
+            Some(NameType::Dictionary {
+                key,
+                large: **v == DataType::LargeUtf8,
+            })
         }
         _ => None,
     }
@@ -316,7 +378,7 @@ impl Source {
                 Some(ci)
             }
             Layout::Wide => {
-                let wanted: Vec<usize> = match &settings.channels {
+                let mut wanted: Vec<usize> = match &settings.channels {
                     Some(list) => list
                         .iter()
                         .map(|c| {
@@ -327,8 +389,29 @@ impl Source {
                             })
                         })
                         .collect::<Result<_>>()?,
-                    None => numeric.clone(),
+                    None => {
+                        // Every other column of a wide file is a channel: one that cannot be
+                        // archived is refused by name, never left out silently.
+                        let odd = (0..fields.len()).find(|&i| {
+                            i != time_idx && value_type_of(fields[i].data_type()).is_none()
+                        });
+                        if let Some(i) = odd {
+                            return Err(Error::WrongType {
+                                file,
+                                column: fields[i].name().clone(),
+                                found: fields[i].data_type().to_string(),
+                                expected: "Float64, Float32, Int16 or Int32 (in the wide layout \
+                                           every column is a channel; name the channels to \
+                                           archive with --channels to leave it out)"
+                                    .into(),
+                            });
+                        }
+                        (0..fields.len()).filter(|&i| i != time_idx).collect()
+                    }
                 };
+                // In the file's column order, each once, whatever the order of `--channels`.
+                wanted.sort_unstable();
+                wanted.dedup();
                 if wanted.is_empty() {
                     return Err(Error::Layout {
                         file,

@@ -9,11 +9,11 @@ use std::path::Path;
 use std::sync::Arc;
 
 use arrow::array::{
-    ArrayRef, DictionaryArray, Float32Array, Float64Array, Int16Array, Int32Array, Int64Array,
-    LargeStringArray, RecordBatch, StringArray, TimestampMicrosecondArray,
-    TimestampMillisecondArray, TimestampNanosecondArray, TimestampSecondArray,
+    ArrayRef, Float32Array, Float64Array, Int16Array, Int32Array, Int64Array, RecordBatch,
+    StringArray, TimestampMicrosecondArray, TimestampMillisecondArray, TimestampNanosecondArray,
+    TimestampSecondArray,
 };
-use arrow::datatypes::{DataType, Field, Int32Type, Schema};
+use arrow::datatypes::{DataType, Field, Schema};
 use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
@@ -136,13 +136,7 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
         match schema.layout {
             Layout::Long => {
                 let name_type = schema.name_type.unwrap_or(NameType::Utf8);
-                let name_dt = match name_type {
-                    NameType::Utf8 => DataType::Utf8,
-                    NameType::LargeUtf8 => DataType::LargeUtf8,
-                    NameType::Dictionary => {
-                        DataType::Dictionary(Box::new(DataType::Int32), Box::new(DataType::Utf8))
-                    }
-                };
+                let name_dt = name_type.data_type();
                 let vt = meta
                     .channels
                     .first()
@@ -154,7 +148,7 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
                             .channel_column
                             .clone()
                             .unwrap_or_else(|| "channel".into()),
-                        name_dt,
+                        name_dt.clone(),
                         false,
                     ),
                     Field::new(
@@ -173,17 +167,14 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
                     while start < s.times.len() {
                         let end = (start + READ_BATCH_ROWS).min(s.times.len());
                         let n = end - start;
-                        let names: ArrayRef = match name_type {
-                            NameType::Utf8 => Arc::new(StringArray::from_iter_values(
-                                std::iter::repeat_n(s.name.as_str(), n),
-                            )),
-                            NameType::LargeUtf8 => Arc::new(LargeStringArray::from_iter_values(
-                                std::iter::repeat_n(s.name.as_str(), n),
-                            )),
-                            NameType::Dictionary => Arc::new(
-                                std::iter::repeat_n(s.name.as_str(), n)
-                                    .collect::<DictionaryArray<Int32Type>>(),
-                            ),
+                        let names: ArrayRef = Arc::new(StringArray::from_iter_values(
+                            std::iter::repeat_n(s.name.as_str(), n),
+                        ));
+                        let names = if name_dt == DataType::Utf8 {
+                            names
+                        } else {
+                            arrow::compute::cast(&names, &name_dt)
+                                .map_err(|e| perr(e.to_string()))?
                         };
                         let batch = RecordBatch::try_new(
                             arrow_schema.clone(),
