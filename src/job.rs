@@ -747,6 +747,18 @@ pub fn decode_file(
     to: Option<i64>,
 ) -> Result<DecodeSummary> {
     archive::refuse_same_file(archive_path, out)?;
+    // The digest beside the archive covers every byte, the Parquet footer and cyclarc's
+    // metadata included, which nothing inside the file checksums: a mismatch is damage.
+    if archive::check_digest(archive_path)? == Some(false) {
+        return Err(Error::Damaged {
+            file: archive_path.to_path_buf(),
+            reason: format!(
+                "its SHA-256 differs from the digest recorded in {} (the file changed after \
+                 it was written)",
+                archive::digest_path(archive_path).display()
+            ),
+        });
+    }
     let archive = archive::read_archive(archive_path)?;
     for c in channels {
         if !archive.meta.channels.iter().any(|m| &m.name == c) {
@@ -757,7 +769,7 @@ pub fn decode_file(
         }
     }
     let series = crate::decode::decode_channels(&archive, channels, from, to, RealFft::shared())?;
-    let rows = crate::write::write_decoded(out, &archive.meta, &series)?;
+    let rows = crate::write::write_decoded(out, &archive.meta, &series, channels)?;
     Ok(DecodeSummary {
         archive: archive_path.to_path_buf(),
         out: out.to_path_buf(),

@@ -111,7 +111,14 @@ fn cells_of(s: &ChannelSeries, range: std::ops::Range<usize>) -> Vec<Cell> {
 }
 
 /// Write decoded channels to `out` (atomically). Returns the rows written.
-pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -> Result<u64> {
+/// `channels` are the channels asked for (empty: all); in the wide layout each gets its column
+/// even when the time range holds none of its samples.
+pub fn write_decoded(
+    out: &Path,
+    meta: &ArchiveMeta,
+    series: &[ChannelSeries],
+    channels: &[String],
+) -> Result<u64> {
     let schema = &meta.schema;
     let vt_of = |name: &str| {
         meta.channels
@@ -195,11 +202,20 @@ pub fn write_decoded(out: &Path, meta: &ArchiveMeta, series: &[ChannelSeries]) -
             }
             Layout::Wide => {
                 // Output columns in the source's column order.
+                let empty: Vec<ChannelSeries> = schema
+                    .channels
+                    .iter()
+                    .map(|c| ChannelSeries {
+                        name: c.name.clone(),
+                        ..Default::default()
+                    })
+                    .collect();
                 let mut cols: Vec<&ChannelSeries> = Vec::new();
-                for c in &schema.channels {
-                    if let Some(s) = series.iter().find(|s| s.name == c.name) {
-                        cols.push(s);
+                for (c, e) in schema.channels.iter().zip(&empty) {
+                    if !channels.is_empty() && !channels.contains(&c.name) {
+                        continue;
                     }
+                    cols.push(series.iter().find(|s| s.name == c.name).unwrap_or(e));
                 }
                 let mut fields = vec![time_field.clone()];
                 fields.extend(
