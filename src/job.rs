@@ -747,6 +747,14 @@ pub fn decode_file(
     to: Option<i64>,
 ) -> Result<DecodeSummary> {
     archive::refuse_same_file(archive_path, out)?;
+    if let (Some(f), Some(t)) = (from, to) {
+        if f >= t {
+            return Err(Error::InvalidOption {
+                name: "from".into(),
+                reason: format!("--from ({f} ns) must be before --to ({t} ns)"),
+            });
+        }
+    }
     // The digest beside the archive covers every byte, the Parquet footer and cyclarc's
     // metadata included, which nothing inside the file checksums: a mismatch is damage.
     if archive::check_digest(archive_path)? == Some(false) {
