@@ -136,14 +136,20 @@ pub fn inspect(a: &Archive) -> Inspect {
                 0.0
             },
             worst_error_over_budget: worst,
-            fundamental: match (cm.fundamental.as_str(), cm.fundamental_hz) {
-                ("not_periodic", _) | (_, None) => cm.fundamental.clone(),
-                (kind, Some(hz)) => match cm.tracked_hz {
-                    Some((lo, hi)) if (hi - lo) > 1e-6 * hi => {
-                        format!("{kind} {lo:.3}–{hi:.3} Hz")
-                    }
-                    _ => format!("{kind} {hz:.3} Hz"),
-                },
+            fundamental: {
+                let sure = match (cm.fundamental.as_str(), cm.confidence) {
+                    ("estimated", Some(c)) => format!(", r = {c:.2}"),
+                    _ => String::new(),
+                };
+                match (cm.fundamental.as_str(), cm.fundamental_hz) {
+                    ("not_periodic", _) | (_, None) => cm.fundamental.replace('_', " "),
+                    (kind, Some(hz)) => match cm.tracked_hz {
+                        Some((lo, hi)) if (hi - lo) > 1e-6 * hi => {
+                            format!("{kind} {lo:.3}–{hi:.3} Hz{sure}")
+                        }
+                        _ => format!("{kind} {hz:.3} Hz{sure}"),
+                    },
+                }
             },
         });
     }
@@ -285,19 +291,39 @@ pub fn inspect_text(i: &Inspect) -> String {
 
 /// Text for an encode summary.
 pub fn encode_text(e: &EncodeSummary) -> String {
-    format!(
-        "{} → {}: {} rows, {} channels, {} segments; {} → {} ({:.1}× smaller than the source \
+    let mut notes = String::new();
+    for c in &e.fundamentals {
+        match (c.fundamental.as_str(), c.fundamental_hz, c.confidence) {
+            ("not_periodic", _, _) => notes.push_str(&format!(
+                "  {}: no periodicity found; cut into fixed {:.0} ms segments\n",
+                c.name,
+                crate::segment::DEFAULT_FALLBACK_SEGMENT_SECONDS * 1e3
+            )),
+            ("estimated", Some(hz), Some(r)) => notes.push_str(&format!(
+                "  {}: fundamental estimated at {hz:.4} Hz (autocorrelation {r:.2} at its period)\n",
+                c.name
+            )),
+            ("mixed", _, _) => notes.push_str(&format!(
+                "  {}: some runs periodic, some cut into fixed segments\n",
+                c.name
+            )),
+            _ => {}
+        }
+    }
+    notes
+        + &format!(
+            "{} → {}: {} rows, {} channels, {} segments; {} → {} ({:.1}× smaller than the source \
          file); worst error/budget {:.3}\n",
-        e.source.display(),
-        e.archive.display(),
-        e.rows,
-        e.channels,
-        e.segments,
-        bytes(e.source_bytes),
-        bytes(e.archive_bytes),
-        e.source_bytes as f64 / e.archive_bytes.max(1) as f64,
-        e.worst_error_over_budget
-    )
+            e.source.display(),
+            e.archive.display(),
+            e.rows,
+            e.channels,
+            e.segments,
+            bytes(e.source_bytes),
+            bytes(e.archive_bytes),
+            e.source_bytes as f64 / e.archive_bytes.max(1) as f64,
+            e.worst_error_over_budget
+        )
 }
 
 /// Text for a verify report.
