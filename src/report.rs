@@ -310,20 +310,19 @@ pub fn encode_text(e: &EncodeSummary) -> String {
             _ => {}
         }
     }
-    notes
-        + &format!(
-            "{} → {}: {} rows, {} channels, {} segments; {} → {} ({:.1}× smaller than the source \
+    format!(
+        "{} → {}: {} rows, {} channels, {} segments; {} → {} ({:.1}× smaller than the source \
          file); worst error/budget {:.3}\n",
-            e.source.display(),
-            e.archive.display(),
-            e.rows,
-            e.channels,
-            e.segments,
-            bytes(e.source_bytes),
-            bytes(e.archive_bytes),
-            e.source_bytes as f64 / e.archive_bytes.max(1) as f64,
-            e.worst_error_over_budget
-        )
+        e.source.display(),
+        e.archive.display(),
+        e.rows,
+        e.channels,
+        e.segments,
+        bytes(e.source_bytes),
+        bytes(e.archive_bytes),
+        e.source_bytes as f64 / e.archive_bytes.max(1) as f64,
+        e.worst_error_over_budget
+    ) + &notes
 }
 
 /// Text for a verify report.
