@@ -74,3 +74,161 @@ pub fn three_phase(phase: usize, f0: f64, fs: f64, n: usize, seed: u64) -> Vec<f
         })
         .collect()
 }
+
+// ---- Helpers for the reference tests (decoding, budgets, error bounds, test signals) ----
+
+use cyclarc::fit::FitPlan;
+use cyclarc::job::RunEncoding;
+use cyclarc::options::Budget;
+use cyclarc::pack::{decode_block, SegmentRecord};
+use cyclarc::signal::Transform;
+
+/// Unit roundoff of f64 (half the machine epsilon).
+pub const U: f64 = f64::EPSILON / 2.0;
+
+/// Relative 2-norm error bound of an orthonormal FFT of length `n`, ‖ŷ − y‖₂ ≤ bound·‖x‖₂.
+///
+/// Higham, *Accuracy and Stability of Numerical Algorithms* (2nd ed.), Thm 24.2 (theorem
+/// number from memory): a radix-2 Cooley–Tukey FFT of t = log₂N stages with twiddles accurate
+/// to μ has ‖ŷ − y‖/‖y‖ ≤ t·η/(1 − t·η), η = μ + γ₄(√2 + μ), γ₄ = 4u/(1 − 4u). rustfft
+/// precomputes its twiddles with sin/cos (μ ≈ u). A prime or awkward length is done by
+/// Bluestein's algorithm (three passes of a power-of-two FFT of at most 4N points, plus chirp
+/// products) or by Rader's (two passes of N − 1 points), and realfft adds one post-processing
+/// stage for even N; t = 3·(⌈log₂N⌉ + 2) + 1 stages covers every case. This is the
+/// c·ε·log₂N form of the standard FFT error analysis. (RustFFT's own accuracy tests,
+/// `tests/accuracy.rs`, make the same comparison with a naive DFT against a fixed threshold
+/// of 0.1 mean absolute error; the tests here hold the transforms to this bound instead.)
+pub fn fft_rel_bound(n: usize) -> f64 {
+    let mu = U;
+    let gamma4 = 4.0 * U / (1.0 - 4.0 * U);
+    let eta = mu + gamma4 * (std::f64::consts::SQRT_2 + mu);
+    let log2n = (n.max(2) as f64).log2().ceil();
+    let t = 3.0 * (log2n + 2.0) + 1.0;
+    t * eta / (1.0 - t * eta)
+}
+
+/// RMS over the finite source values of (decoded − source).
+pub fn rms_error(source: &[f64], decoded: &[f64]) -> f64 {
+    assert_eq!(source.len(), decoded.len());
+    let (s, n) = source
+        .iter()
+        .zip(decoded)
+        .filter(|(x, _)| x.is_finite())
+        .fold((0.0, 0usize), |(s, n), (x, y)| {
+            (s + (y - x) * (y - x), n + 1)
+        });
+    if n == 0 {
+        0.0
+    } else {
+        (s / n as f64).sqrt()
+    }
+}
+
+/// RMS over the finite values (computed here, independently of the library).
+pub fn finite_rms_of(x: &[f64]) -> f64 {
+    let (s, n) = x
+        .iter()
+        .filter(|v| v.is_finite())
+        .fold((0.0, 0usize), |(s, n), v| (s + v * v, n + 1));
+    if n == 0 {
+        0.0
+    } else {
+        (s / n as f64).sqrt()
+    }
+}
+
+/// The budget the README promises for a segment: absolute ε, or max(fraction · RMS, floor).
+pub fn promised_budget(b: Budget, x: &[f64]) -> f64 {
+    match b {
+        Budget::Absolute(e) => e,
+        Budget::Relative { fraction, floor } => (fraction * finite_rms_of(x)).max(floor),
+    }
+}
+
+/// One segment of an encoded run after decoding its block from the frame bytes.
+pub struct Decoded {
+    /// First sample of the segment in the run.
+    pub start: usize,
+    /// The fit decision recorded by the encoder.
+    pub plan: FitPlan,
+    /// The segment as unpacked from the frame.
+    pub record: SegmentRecord,
+    /// The previous segment of the same block, if it is a Fourier segment: its
+    /// reconstructed coefficients, length and ideal length (what the prediction uses).
+    pub prev: Option<(Vec<cyclarc::signal::C64>, usize, f64)>,
+    /// Decoder output (value type applied; NaN at non-finite positions).
+    pub values: Vec<f64>,
+    /// Reconstructed coefficients (Fourier only).
+    pub coeffs: Vec<cyclarc::signal::C64>,
+    /// The segment's archive row as the encoder made it.
+    pub row: cyclarc::archive::SegmentRow,
+}
+
+/// Unpack every block of `enc` from its frame bytes and rebuild it with `fft`; segments in
+/// run order, with their plans. Panics when the encoding is inconsistent with its plan.
+pub fn decode_run(enc: &RunEncoding, fft: &dyn Transform) -> Vec<Decoded> {
+    let mut out = Vec::new();
+    let mut planned = enc.plan.segments.iter();
+    for b in &enc.blocks {
+        let block = decode_block(&b.frame).expect("frame decodes");
+        let segs = cyclarc::decode::rebuild_block(&block, fft).expect("block rebuilds");
+        assert_eq!(segs.len(), b.fits.len());
+        assert_eq!(segs.len(), b.rows.len());
+        let mut prev = None;
+        for (((rec, seg), plan), row) in block.segments.iter().zip(segs).zip(&b.fits).zip(&b.rows) {
+            let p = planned.next().expect("as many segments as planned");
+            assert_eq!(p.len, rec.len);
+            let here = (rec.basis == cyclarc::fit::Basis::Fourier)
+                .then(|| (seg.coeffs.clone(), rec.len, rec.ideal_len as f64));
+            out.push(Decoded {
+                start: p.start,
+                plan: plan.clone(),
+                record: rec.clone(),
+                prev: prev.take(),
+                values: seg.values,
+                coeffs: seg.coeffs,
+                row: row.clone(),
+            });
+            prev = here;
+        }
+    }
+    assert!(planned.next().is_none(), "every planned segment is encoded");
+    out
+}
+
+/// Shaft vibration at `fs`: shaft rate 29.5 Hz with harmonics 1–8, a bearing defect's
+/// decaying impacts at BPFO = 3.585·f_r ringing at 3.1 kHz, and white Gaussian noise of RMS
+/// `noise_rms`. Units g; the shaft components total about 0.5 g RMS.
+pub fn vibration(fs: f64, n: usize, noise_rms: f64, seed: u64) -> Vec<f64> {
+    use rand_distr::{Distribution, Normal};
+    use std::f64::consts::PI;
+    let mut r = rng(seed);
+    let noise = Normal::new(0.0, noise_rms).expect("valid normal");
+    let fr = 29.5;
+    let bpfo = 3.585 * fr;
+    let amps = [0.6, 0.3, 0.15, 0.1, 0.06, 0.04, 0.03, 0.02];
+    (0..n)
+        .map(|i| {
+            let t = i as f64 / fs;
+            let mut v = 0.0;
+            for (h, a) in amps.iter().enumerate() {
+                let h = (h + 1) as f64;
+                v += a * (2.0 * PI * h * fr * t + 0.7 * h).sin();
+            }
+            // Time since the last impact, and the impact's ring-down.
+            let since = t - (t * bpfo).floor() / bpfo;
+            v += 0.4 * (-since * 900.0).exp() * (2.0 * PI * 3100.0 * since).sin();
+            v + noise.sample(&mut r)
+        })
+        .collect()
+}
+
+/// Whether `budget` is `promised` stored as f32 rounded down (README, "Budgets are stored as
+/// f32 rounded down"): an f32 value, not above `promised`, whose next f32 is above it.
+pub fn is_f32_rounded_down(budget: f64, promised: f64) -> bool {
+    if budget.is_nan() || budget < 0.0 || budget > promised || budget as f32 as f64 != budget {
+        return false;
+    }
+    let next = f32::from_bits((budget as f32).to_bits() + 1) as f64;
+    next > promised
+}
