@@ -488,14 +488,35 @@ pub fn write_atomic<T>(out: &Path, write: impl FnOnce(&mut File) -> Result<T>) -
         // A failed fsync means the data may not be on disk: fail this output, never retry.
         f.sync_all().map_err(werr)?;
         drop(f);
-        std::fs::rename(&tmp, out).map_err(werr)?;
-        sync_dir(out).map_err(werr)?;
+        publish(&tmp, out).map_err(werr)?;
         Ok(v)
     })();
     if result.is_err() {
         let _ = std::fs::remove_file(&tmp);
     }
     result
+}
+
+/// Rename a finished, fsynced temporary file onto `out` and fsync the folder. When the
+/// folder's fsync fails the rename may not survive a crash, so the file is taken back
+/// (removed): nothing stays published that was not made durable.
+pub fn publish(tmp: &Path, out: &Path) -> std::io::Result<()> {
+    std::fs::rename(tmp, out)?;
+    if let Err(e) = sync_dir(out) {
+        let _ = std::fs::remove_file(out);
+        let _ = sync_dir(out);
+        return Err(e);
+    }
+    Ok(())
+}
+
+/// Remove a file if it exists (and fsync its folder); a missing file is fine.
+fn remove_if_present(path: &Path) -> std::io::Result<()> {
+    match std::fs::remove_file(path) {
+        Ok(()) => sync_dir(path),
+        Err(e) if e.kind() == std::io::ErrorKind::NotFound => Ok(()),
+        Err(e) => Err(e),
+    }
 }
 
 /// fsync the folder holding `path`, so a rename survives a crash.
@@ -630,26 +651,42 @@ impl ArchiveWriter {
             // A failed fsync means the data may not be on disk: fail this output, never retry.
             file.sync_all().map_err(werr)?;
             drop(file);
-            std::fs::rename(&self.tmp, &self.out).map_err(werr)?;
-            sync_dir(&self.out).map_err(werr)
+            let digest = sha256_file(&self.tmp).map_err(|e| match e {
+                Error::Open { source, .. } => werr(source),
+                other => other,
+            })?;
+            // A digest left by an earlier archive of this name would not match the new file:
+            // remove it first, so that a crash before the new one is written leaves no digest
+            // (reported as missing), never a wrong one.
+            remove_if_present(&digest_path(&self.out)).map_err(werr)?;
+            publish(&self.tmp, &self.out).map_err(werr)?;
+            Ok(digest)
         })();
-        if let Err(e) = result {
-            let _ = std::fs::remove_file(&self.tmp);
-            return Err(e);
-        }
-        let (digest, size) = sha256_file(&self.out)?;
+        let (digest, size) = match result {
+            Ok(d) => d,
+            Err(e) => {
+                let _ = std::fs::remove_file(&self.tmp);
+                return Err(e);
+            }
+        };
         let name = self
             .out
             .file_name()
             .map(|n| n.to_string_lossy().into_owned())
             .unwrap_or_default();
         let dp = digest_path(&self.out);
-        write_atomic(&dp, |f| {
+        let written = write_atomic(&dp, |f| {
             writeln!(f, "{digest}  {name}").map_err(|e| Error::Write {
                 file: dp.clone(),
                 source: e,
             })
-        })?;
+        });
+        if let Err(e) = written {
+            // An archive whose digest could not be recorded is not published either.
+            let _ = std::fs::remove_file(&self.out);
+            let _ = sync_dir(&self.out);
+            return Err(e);
+        }
         Ok(size)
     }
 }
@@ -752,13 +789,13 @@ pub fn read_archive(path: &Path) -> Result<Archive> {
         .build()
         .map_err(|e| damaged(path, e.to_string()))?;
     let mut rows = Vec::new();
-    let result = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| -> Result<()> {
+    let result = crate::read::contain(|| -> Result<()> {
         for batch in reader {
             let batch = batch.map_err(|e| damaged(path, e.to_string()))?;
             batch_to_rows(&batch, &mut rows).map_err(|e| damaged(path, e))?;
         }
         Ok(())
-    }));
+    });
     match result {
         Ok(r) => r?,
         Err(_) => return Err(damaged(path, "the Parquet reader failed on damaged data")),

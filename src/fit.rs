@@ -184,10 +184,7 @@ fn quantize_bin(c: C64, p: C64, step: f64, k: usize, n: usize) -> (i64, i64, f64
 /// `E(L) = Σ_{k<L} w_k |c_k − p_k − Δ·q_k|² + Σ_{k≥L} w_k |c_k|²`.
 pub fn error_by_order(c: &[C64], pred: Option<&[C64]>, step: f64, n: usize) -> Vec<f64> {
     let m = c.len();
-    let mut tail = vec![0.0; m + 1];
-    for k in (0..m).rev() {
-        tail[k] = tail[k + 1] + weight(k, n) * c[k].norm_sqr();
-    }
+    let tail = tail_energies(c, n);
     let mut out = Vec::with_capacity(m + 1);
     let mut head = 0.0;
     out.push(tail[0]);
@@ -199,6 +196,44 @@ pub fn error_by_order(c: &[C64], pred: Option<&[C64]>, step: f64, n: usize) -> V
         out.push(head + tail[k + 1]);
     }
     out
+}
+
+/// Energies of the dropped bins, `T(L) = Σ_{k≥L} w_k |c_k|²` for L = 0 … m: the part of
+/// [`error_by_order`] that does not depend on the step.
+fn tail_energies(c: &[C64], n: usize) -> Vec<f64> {
+    let m = c.len();
+    let mut tail = vec![0.0; m + 1];
+    for k in (0..m).rev() {
+        tail[k] = tail[k + 1] + weight(k, n) * c[k].norm_sqr();
+    }
+    tail
+}
+
+/// The least order L whose error energy `E(L)` (exactly as [`error_by_order`] computes it,
+/// from the same sums in the same order) is at most `target`; bins beyond that L are not
+/// quantized. `tail` is [`tail_energies`] of `c`.
+fn least_order(
+    c: &[C64],
+    pred: Option<&[C64]>,
+    step: f64,
+    n: usize,
+    tail: &[f64],
+    target: f64,
+) -> Option<usize> {
+    if tail[0] <= target {
+        return Some(0);
+    }
+    let mut head = 0.0;
+    for (k, &ck) in c.iter().enumerate() {
+        let p = pred.map_or(C64::new(0.0, 0.0), |p| {
+            p.get(k).copied().unwrap_or_default()
+        });
+        head += quantize_bin(ck, p, step, k, n).2;
+        if head + tail[k + 1] <= target {
+            return Some(k + 1);
+        }
+    }
+    None
 }
 
 /// The codes of order `l`, step Δ, optional prediction; and the reconstructed coefficients.
@@ -567,13 +602,14 @@ pub fn choose_step_order(
     let lo = (12.0 * target_energy / (2.0 * m as f64)).sqrt() / 2.0;
     let ratio = 2f64.powf(-1.0 / STEPS_PER_OCTAVE);
     let mut best: Option<(f32, usize, f64)> = None;
+    // The dropped bins' energy is the same at every step: summed once.
+    let tail = tail_energies(c, n);
     let mut s = hi;
     while s >= lo {
         let step = s as f32;
         let sd = step as f64;
         if sd > 0.0 {
-            let err = error_by_order(c, pred, sd, n);
-            if let Some(l) = err.iter().position(|&e| e <= target_energy) {
+            if let Some(l) = least_order(c, pred, sd, n, &tail, target_energy) {
                 let (codes, _) = quantize(c, pred, sd, n, l);
                 let bits = cost_bits(&codes) + HEADER_BITS;
                 if best.is_none_or(|b| bits < b.2) {

@@ -7,6 +7,7 @@
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 use rayon::prelude::*;
 use serde::Serialize;
@@ -519,6 +520,8 @@ fn encode_pass(
     let mut ordered: Ordered = BTreeMap::new();
     let mut last_written: Option<i64> = None;
     let mut fits: Vec<FitPlan> = Vec::new();
+    let shared_settings = Arc::new(settings.clone());
+    let mut in_flight: Option<InFlight> = None;
     let bar = progress_bar(
         control,
         src.total_rows,
@@ -553,20 +556,40 @@ fn encode_pass(
             }
         }
         if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
-            fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+            // Fit this batch on the pool while the next one is read and planned; then write
+            // what the previous batch completed.
+            let batch_start = jobs
+                .iter()
+                .filter_map(|j| j.run.times.first())
+                .min()
+                .copied();
+            let handle = start_fit(&mut jobs, &channels, &shared_settings);
             let watermark = channels
                 .iter()
                 .map(|c| c.front_time())
                 .min()
                 .unwrap_or(i64::MAX);
-            flush(
-                &mut ordered,
-                Some(watermark),
-                &mut writer,
-                &mut fits,
-                &mut last_written,
-            )?;
+            if let Some(prev) = in_flight.replace(InFlight::new(handle, watermark)) {
+                let prev_watermark = prev.watermark;
+                prev.finish(&mut ordered)?;
+                // Every block not yet filed starts at or after all three: the previous
+                // batch's watermark, this batch's first block, and what the channels hold
+                // now (a channel may have appeared since).
+                let limit = prev_watermark
+                    .min(batch_start.unwrap_or(i64::MAX))
+                    .min(watermark);
+                flush(
+                    &mut ordered,
+                    Some(limit),
+                    &mut writer,
+                    &mut fits,
+                    &mut last_written,
+                )?;
+            }
         }
+    }
+    if let Some(prev) = in_flight.take() {
+        prev.finish(&mut ordered)?;
     }
     bar.finish_and_clear();
     if sort {
@@ -655,6 +678,91 @@ fn encode_pass(
         worst_error_over_budget: worst,
         fundamentals: channel_meta,
     }))
+}
+
+/// The parameters of a block's channel, owned, for fitting on another thread.
+struct JobChannel {
+    name: String,
+    value_type: ValueType,
+    sample_rate: Option<f64>,
+    budget: Budget,
+}
+
+/// A batch of blocks being fitted on the thread pool while the caller reads on. Dropped
+/// unfinished (an early return), it still waits for the batch, so no work outlives the job.
+struct InFlight {
+    handle: Option<std::thread::JoinHandle<Result<Vec<EncodedBlock>>>>,
+    /// Every block handed out after this batch starts at or after this time.
+    watermark: i64,
+}
+
+impl InFlight {
+    fn new(handle: std::thread::JoinHandle<Result<Vec<EncodedBlock>>>, watermark: i64) -> Self {
+        InFlight {
+            handle: Some(handle),
+            watermark,
+        }
+    }
+
+    /// Wait for the batch and file its blocks in canonical order.
+    fn finish(mut self, ordered: &mut Ordered) -> Result<()> {
+        let Some(h) = self.handle.take() else {
+            return Ok(());
+        };
+        let done = h.join().unwrap_or_else(|p| std::panic::resume_unwind(p))?;
+        for b in done {
+            if let Some(r) = b.rows.first() {
+                ordered.insert((r.start_ns, r.channel.clone()), b);
+            }
+        }
+        Ok(())
+    }
+}
+
+impl Drop for InFlight {
+    fn drop(&mut self) {
+        if let Some(h) = self.handle.take() {
+            let _ = h.join();
+        }
+    }
+}
+
+/// Hand the waiting blocks to the thread pool without waiting for them. The same blocks as
+/// [`fit_jobs`] (each depends only on its own samples and settings).
+fn start_fit(
+    jobs: &mut Vec<BlockJob>,
+    channels: &[ChannelEncoder],
+    settings: &Arc<Settings>,
+) -> std::thread::JoinHandle<Result<Vec<EncodedBlock>>> {
+    let work: Vec<(BlockJob, JobChannel)> = std::mem::take(jobs)
+        .into_iter()
+        .map(|j| {
+            let c = &channels[j.channel];
+            let jc = JobChannel {
+                name: c.info.name.clone(),
+                value_type: c.info.value_type,
+                sample_rate: c.asm.sample_rate(),
+                budget: settings.budget_for(&c.info.name),
+            };
+            (j, jc)
+        })
+        .collect();
+    let settings = Arc::clone(settings);
+    std::thread::spawn(move || {
+        work.into_par_iter()
+            .map(|(j, c)| {
+                let p = RunParams {
+                    channel: &c.name,
+                    value_type: c.value_type,
+                    sample_rate: c.sample_rate,
+                    budget: c.budget,
+                    settings: &settings,
+                    fft: RealFft::shared(),
+                };
+                encode_block_of(&j.run, &j.segs, &p)
+            })
+            .collect()
+    })
 }
 
 /// Fit the waiting blocks in parallel and file them in canonical order.

@@ -166,9 +166,17 @@ fn parse_time(s: &str, flag: &str) -> Result<i64, Error> {
     })
 }
 
+/// Write to stdout. A reader that went away (a closed pipe, as with `| head`) only loses the
+/// report: the work is done, so that is not an error (and never a panic, as `print!` would).
+fn stdout(text: &str) {
+    use std::io::Write;
+    let mut o = std::io::stdout().lock();
+    let _ = o.write_all(text.as_bytes()).and_then(|()| o.flush());
+}
+
 fn print_json<T: serde::Serialize>(v: &T) {
     match serde_json::to_string_pretty(v) {
-        Ok(s) => println!("{s}"),
+        Ok(s) => stdout(&format!("{s}\n")),
         Err(e) => eprintln!("cyclarc: cannot render JSON: {e}"),
     }
 }
@@ -219,7 +227,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
             if json {
                 print_json(&r);
             } else {
-                print!("{}", report::verify_text(&r));
+                stdout(&report::verify_text(&r));
             }
             Ok(if r.passed() { 0 } else { 1 })
         }
@@ -229,7 +237,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
             if json {
                 print_json(&i);
             } else {
-                print!("{}", report::inspect_text(&i));
+                stdout(&report::inspect_text(&i));
             }
             Ok(0)
         }
@@ -265,6 +273,9 @@ fn run(cli: Cli) -> Result<i32, Error> {
 
 fn main() -> ExitCode {
     let cli = Cli::parse();
+    // The parquet reader panics on some damaged files; those panics become errors that name
+    // the file, and print nothing else.
+    cyclarc::read::quiet_contained_panics();
     if let Err(e) = cyclarc::stop::install() {
         eprintln!("cyclarc: cannot install the SIGTERM handler: {e}");
     }

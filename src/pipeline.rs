@@ -309,6 +309,10 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
                             archive: archive.clone(),
                         });
                     }
+                    // The archive is about to be replaced: drop its entry first, so that a
+                    // run killed midway never leaves an entry that does not match the file.
+                    manifest.remove(&name);
+                    write_manifest(&out_dir, &manifest)?;
                 }
                 let summary = encode_file(&src, &archive, &settings, control)?;
                 let verified = if p.verify {

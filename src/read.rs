@@ -246,6 +246,32 @@ fn name_type_of(dt: &DataType) -> Option<NameType> {
     }
 }
 
+thread_local! {
+    /// Depth of [`contain`] calls on this thread.
+    static CONTAINED: std::cell::Cell<u32> = const { std::cell::Cell::new(0) };
+}
+
+/// Run `f`, turning a panic inside it into `Err`: the parquet reader panics on some damaged
+/// files instead of returning an error. The hook of [`quiet_contained_panics`] prints nothing
+/// for such a panic (the caller reports it as an error with the file's name).
+pub fn contain<R>(f: impl FnOnce() -> R) -> std::thread::Result<R> {
+    CONTAINED.with(|c| c.set(c.get() + 1));
+    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(f));
+    CONTAINED.with(|c| c.set(c.get().saturating_sub(1)));
+    r
+}
+
+/// Install a panic hook that stays silent for panics inside [`contain`] and passes every
+/// other panic to the hook installed before (the command line calls this once).
+pub fn quiet_contained_panics() {
+    let previous = std::panic::take_hook();
+    std::panic::set_hook(Box::new(move |info| {
+        if CONTAINED.with(|c| c.get()) == 0 {
+            previous(info)
+        }
+    }));
+}
+
 /// Open a Parquet file, turning the reader's panics on damaged input into errors.
 pub fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
     let file = File::open(path).map_err(|e| Error::Open {
@@ -258,9 +284,7 @@ pub fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>
             source: std::io::Error::other("is a directory"),
         });
     }
-    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| {
-        ParquetRecordBatchReaderBuilder::try_new(file)
-    }));
+    let r = contain(|| ParquetRecordBatchReaderBuilder::try_new(file));
     match r {
         Ok(Ok(b)) => Ok(b),
         Ok(Err(e)) => Err(Error::NotParquet {
@@ -475,7 +499,7 @@ impl Source {
 
     /// Read the next batch, split by channel. `None` at the end of the file.
     pub fn next_chunks(&mut self) -> Option<Result<Vec<ChannelChunk>>> {
-        let next = std::panic::catch_unwind(std::panic::AssertUnwindSafe(|| self.reader.next()));
+        let next = contain(|| self.reader.next());
         let batch = match next {
             Ok(None) => return None,
             Ok(Some(Ok(b))) => b,

@@ -191,9 +191,11 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
     peaks.sort_by(|&a, &b| mag[b].total_cmp(&mag[a]).then(a.cmp(&b)));
     peaks.truncate(PEAK_CANDIDATES);
     let mut cands: Vec<(f64, (f64, f64))> = Vec::new();
+    // The half-length Hann window, computed once for every peak's phase refinement.
+    let half_window: Vec<f64> = (0..n / 2).map(|i| hann(i, n / 2)).collect();
     for &k in &peaks {
         let peak_hz = refine_peak(&mag, k) * bin_hz;
-        let peak_hz = refine_by_phase(&xc, fs, peak_hz).unwrap_or(peak_hz);
+        let peak_hz = refine_by_phase(&xc, fs, peak_hz, &half_window).unwrap_or(peak_hz);
         for d in 1..=6 {
             let f = peak_hz / d as f64;
             if f >= f_lo * 0.999 {
@@ -315,17 +317,19 @@ fn refine_peak(mag: &[f64], k: usize) -> f64 {
     k as f64 + (0.5 * (a - c) / den).clamp(-0.5, 0.5)
 }
 
-/// Refine a tone frequency by the phase advance of its DTFT between the two halves of `x`.
-fn refine_by_phase(x: &[f64], fs: f64, f: f64) -> Option<f64> {
+/// Refine a tone frequency by the phase advance of its DTFT between the two halves of `x`;
+/// `window` is the Hann window of the half length, `hann(i, x.len() / 2)`.
+fn refine_by_phase(x: &[f64], fs: f64, f: f64, window: &[f64]) -> Option<f64> {
     let h = x.len() / 2;
+    debug_assert_eq!(window.len(), h);
     if h < MIN_ESTIMATE_SAMPLES / 2 {
         return None;
     }
     let w = 2.0 * std::f64::consts::PI * f / fs;
     let dtft = |seg: &[f64]| {
         let (mut re, mut im) = (0.0, 0.0);
-        for (i, v) in seg.iter().enumerate() {
-            let a = v * hann(i, h);
+        for (i, (v, wi)) in seg.iter().zip(window).enumerate() {
+            let a = v * wi;
             let ph = w * i as f64;
             re += a * ph.cos();
             im -= a * ph.sin();
