@@ -143,6 +143,59 @@ pub struct Prev {
     pub ideal: f64,
 }
 
+/// Refine the ideal length Λ of the previous segment, which the prediction of the next one
+/// uses, from the measured phase advance of the fundamental (bin `cycles` of the next
+/// segment `x`) over the previous segment's reconstruction. A slightly wrong period turns
+/// into a phase error of h·K·ΔP/P on harmonic h, which the residuals would otherwise have to
+/// carry. Returns `None` when the fundamental is too weak to measure or the correction is
+/// implausibly large (more than [`MAX_IDEAL_CORRECTION`] relative).
+pub fn refine_ideal(x: &[f64], cycles: u32, prev: &Prev) -> Option<f64> {
+    let k = cycles as usize;
+    let n = x.len();
+    if k == 0 || k >= half_len(n) || k >= prev.coeffs.len() || prev.n == 0 {
+        return None;
+    }
+    let mut filled = x.to_vec();
+    if fill_non_finite(&mut filled) == 0 {
+        return None;
+    }
+    // One DFT bin by rotation: Σ x_m e^(−2πi·k·m/n).
+    let w = C64::from_polar(1.0, -2.0 * std::f64::consts::PI * k as f64 / n as f64);
+    let (mut acc, mut rot) = (C64::new(0.0, 0.0), C64::new(1.0, 0.0));
+    let mut energy = 0.0;
+    for &v in &filled {
+        acc += rot * v;
+        rot *= w;
+        energy += v * v;
+    }
+    let c = acc / (n as f64).sqrt();
+    let p = prev.coeffs[k];
+    // The fundamental must carry a fair share of the segment (its weight-2 energy ≥ 10 %).
+    if !(2.0 * c.norm_sqr() >= 0.1 * energy) || p.norm() == 0.0 {
+        return None;
+    }
+    let phi = (c / p).arg() / (2.0 * std::f64::consts::PI);
+    let frac0 = (prev.n as f64 - prev.ideal) / prev.ideal;
+    let kf = k as f64 * frac0;
+    let mut d = (phi - kf).rem_euclid(1.0);
+    if d > 0.5 {
+        d -= 1.0;
+    }
+    // Keep the planned length when the correction is within the measurement's own noise:
+    // everything else in the segment, taken as noise in the bin, bounds the phase error.
+    let other = (energy - 2.0 * c.norm_sqr()).max(0.0) / n as f64;
+    let sigma = (other.sqrt() / c.norm()) / (2.0 * std::f64::consts::PI);
+    if d.abs() <= 3.0 * sigma {
+        return None;
+    }
+    let frac = frac0 + d / k as f64;
+    let ideal = prev.n as f64 / (1.0 + frac);
+    ((ideal / prev.ideal - 1.0).abs() <= MAX_IDEAL_CORRECTION).then_some(ideal)
+}
+
+/// Largest relative correction [`refine_ideal`] makes to a planned ideal length.
+pub const MAX_IDEAL_CORRECTION: f64 = 1e-3;
+
 /// Everything the fitter needs to know about one segment.
 #[derive(Debug, Clone, Copy)]
 pub struct SegmentInput<'a> {

@@ -15,7 +15,7 @@ use serde::Serialize;
 use crate::archive::{self, ArchiveMeta, ChannelMeta, SegmentRow, SourceMeta};
 use crate::assemble::{sort_channel, ChannelAssembler, ChannelSamples, Run, RunEvent, StreamError};
 use crate::error::{Error, Result};
-use crate::fit::{error_to_f32, fit_segment, Basis, FitPlan, Prev, SegmentInput};
+use crate::fit::{error_to_f32, fit_segment, refine_ideal, Basis, FitPlan, Prev, SegmentInput};
 use crate::options::{Budget, Settings};
 use crate::pack::{encode_block, Block, BlockTimes, SegmentRecord, Special};
 use crate::read::{ChannelInfo, Source};
@@ -169,6 +169,23 @@ fn encode_block_of(run: &Run, segs: &[PlannedSegment], p: &RunParams<'_>) -> Res
         let x = &run.values[s.start..s.start + s.len];
         let rms = finite_rms(x);
         let budget = p.budget.resolve(rms);
+        // Tune the previous segment's stored ideal length to the measured phase advance, so
+        // that this segment's prediction lines up (the decoder reads it from that segment).
+        if let (Some(pv), Some(rec), Some(row)) =
+            (prev.as_mut(), records.last_mut(), rows.last_mut())
+        {
+            if let Some(ideal) = refine_ideal(x, s.cycles, pv) {
+                let stored = ideal as f32;
+                let last: &mut SegmentRecord = rec;
+                let last_row: &mut SegmentRow = row;
+                last.ideal_len = stored;
+                pv.ideal = stored as f64;
+                if last.cycles > 0 {
+                    last_row.fundamental_hz =
+                        Some((fs * last.cycles as f64 / stored as f64) as f32);
+                }
+            }
+        }
         let fitted = fit_segment(
             SegmentInput {
                 values: x,
