@@ -530,7 +530,6 @@ fn encode_pass(
 ) -> Result<Option<EncodeSummary>> {
     let mut src = Source::open(source, settings)?;
     let mut writer = archive::ArchiveWriter::create(out)?;
-    let fft = RealFft::shared();
     let mut channels: Vec<ChannelEncoder> = Vec::new();
     let mut gathered: Vec<ChannelSamples> = Vec::new();
     let mut jobs: Vec<BlockJob> = Vec::new();
@@ -630,7 +629,7 @@ fn encode_pass(
                     Err(StreamError::Fatal(e)) => return Err(e),
                 }
                 if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
-                    fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+                    fit_jobs(&mut jobs, &channels, &shared_settings, &mut ordered)?;
                 }
             }
             channels[ci].finish(ci, settings, &mut jobs);
@@ -640,7 +639,7 @@ fn encode_pass(
         c.finish(ci, settings, &mut jobs);
     }
     crate::stop::check()?;
-    fit_jobs(&mut jobs, &channels, settings, fft, &mut ordered)?;
+    fit_jobs(&mut jobs, &channels, &shared_settings, &mut ordered)?;
     flush(
         &mut ordered,
         None,
@@ -782,35 +781,15 @@ fn start_fit(
     })
 }
 
-/// Fit the waiting blocks in parallel and file them in canonical order.
+/// Fit the waiting blocks in parallel and file them in canonical order: [`start_fit`] and
+/// wait for it.
 fn fit_jobs(
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
-    settings: &Settings,
-    fft: &dyn Transform,
+    settings: &Arc<Settings>,
     ordered: &mut Ordered,
 ) -> Result<()> {
-    let done = std::mem::take(jobs)
-        .into_par_iter()
-        .map(|j| {
-            let c = &channels[j.channel];
-            let p = RunParams {
-                channel: &c.info.name,
-                value_type: c.info.value_type,
-                sample_rate: c.asm.sample_rate(),
-                budget: settings.budget_for(&c.info.name),
-                settings,
-                fft,
-            };
-            encode_block_of(&j.run, &j.segs, &p)
-        })
-        .collect::<Result<Vec<_>>>()?;
-    for b in done {
-        if let Some(r) = b.rows.first() {
-            ordered.insert((r.start_ns, r.channel.clone()), b);
-        }
-    }
-    Ok(())
+    InFlight::new(start_fit(jobs, channels, settings), i64::MAX).finish(ordered)
 }
 
 /// Write the blocks that start before `watermark` (all when `None`), in order.
