@@ -62,9 +62,9 @@ use crate::signal::ValueType;
 /// Archive format major version.
 pub const FORMAT_MAJOR: u32 = 1;
 /// Archive format minor version.
-pub const FORMAT_MINOR: u32 = 0;
+pub const FORMAT_MINOR: u32 = 1;
 /// Archive format version as written.
-pub const FORMAT_VERSION: &str = "1.0";
+pub const FORMAT_VERSION: &str = "1.1";
 /// This program's version, recorded as the writer.
 pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
 
@@ -222,6 +222,9 @@ pub struct ChannelMeta {
     pub confidence: Option<f64>,
     /// Lowest and highest tracked fundamental (Hz).
     pub tracked_hz: Option<(f64, f64)>,
+    /// Blocks of the channel in the archive (format 1.1 on; absent in 1.0 archives).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub blocks: Option<u64>,
 }
 
 impl ChannelMeta {
@@ -244,6 +247,7 @@ impl ChannelMeta {
             fundamental_hz: None,
             confidence: None,
             tracked_hz: None,
+            blocks: None,
         }
     }
 
@@ -463,6 +467,48 @@ pub fn refuse_same_file(source: &Path, out: &Path) -> Result<()> {
     Ok(())
 }
 
+/// Refuse an output path that exists and is not a regular file (a device, FIFO, socket or
+/// folder): renaming a finished file onto it would replace it. Checked before anything is
+/// written, so nothing appears beside it either.
+pub fn check_output(path: &Path) -> Result<()> {
+    let Ok(m) = std::fs::metadata(path) else {
+        return Ok(());
+    };
+    if m.is_file() {
+        return Ok(());
+    }
+    let kind = if m.is_dir() {
+        "folder"
+    } else {
+        special_file_kind(&m.file_type())
+    };
+    Err(Error::NotARegularFile {
+        file: path.to_path_buf(),
+        kind: kind.into(),
+    })
+}
+
+#[cfg(unix)]
+fn special_file_kind(t: &std::fs::FileType) -> &'static str {
+    use std::os::unix::fs::FileTypeExt;
+    if t.is_char_device() {
+        "character device"
+    } else if t.is_block_device() {
+        "block device"
+    } else if t.is_fifo() {
+        "FIFO"
+    } else if t.is_socket() {
+        "socket"
+    } else {
+        "special file"
+    }
+}
+
+#[cfg(not(unix))]
+fn special_file_kind(_: &std::fs::FileType) -> &'static str {
+    "special file"
+}
+
 /// The temporary name an output is written under before it is renamed into place.
 pub fn temp_path(out: &Path) -> PathBuf {
     let name = out
@@ -476,6 +522,7 @@ pub fn temp_path(out: &Path) -> PathBuf {
 /// `write` fills the temporary file. On any failure the temporary file is removed and nothing
 /// appears under `out`.
 pub fn write_atomic<T>(out: &Path, write: impl FnOnce(&mut File) -> Result<T>) -> Result<T> {
+    check_output(out)?;
     let tmp = temp_path(out);
     let werr = |e: std::io::Error| Error::Write {
         file: out.to_path_buf(),
@@ -546,11 +593,15 @@ pub struct ArchiveWriter {
     pending: Vec<SegmentRow>,
     next_block: u32,
     rows: u64,
+    /// Blocks written per channel, recorded in the metadata.
+    blocks_of: std::collections::BTreeMap<String, u64>,
 }
 
 impl ArchiveWriter {
     /// Start writing `out` (under a temporary name in the same folder).
     pub fn create(out: &Path) -> Result<Self> {
+        check_output(out)?;
+        check_output(&digest_path(out))?;
         let tmp = temp_path(out);
         let file = File::create(&tmp).map_err(|e| Error::Write {
             file: out.to_path_buf(),
@@ -579,6 +630,7 @@ impl ArchiveWriter {
             pending: Vec::new(),
             next_block: 0,
             rows: 0,
+            blocks_of: Default::default(),
         })
     }
 
@@ -594,6 +646,9 @@ impl ArchiveWriter {
         let mut rows = b.rows;
         for r in rows.iter_mut() {
             r.block = self.next_block;
+        }
+        if let Some(r) = rows.first() {
+            *self.blocks_of.entry(r.channel.clone()).or_default() += 1;
         }
         let crc = block_checksum(&b.frame, &rows);
         let mut frame = Some(b.frame);
@@ -631,7 +686,11 @@ impl ArchiveWriter {
     /// Finish: metadata, close, fsync, rename, fsync the folder, digest. Returns the size.
     pub fn finish(mut self, meta: &ArchiveMeta) -> Result<u64> {
         self.write_pending()?;
-        let meta_json = serde_json::to_string(meta).map_err(|e| self.perr(e))?;
+        let mut meta = meta.clone();
+        for c in &mut meta.channels {
+            c.blocks = Some(self.blocks_of.get(&c.name).copied().unwrap_or(0));
+        }
+        let meta_json = serde_json::to_string(&meta).map_err(|e| self.perr(e))?;
         let mut w = self
             .writer
             .take()
@@ -916,4 +975,118 @@ pub fn block_spans(rows: &[SegmentRow]) -> Vec<std::ops::Range<usize>> {
         }
     }
     out
+}
+
+/// A block that is missing, repeated or out of place, or a channel whose blocks do not add up
+/// to what the metadata records.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize)]
+pub struct Hole {
+    /// The channel, when known.
+    pub channel: Option<String>,
+    /// The block number, when it applies.
+    pub block: Option<u32>,
+    /// What is wrong.
+    pub what: String,
+}
+
+impl std::fmt::Display for Hole {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if let Some(c) = &self.channel {
+            write!(f, "channel `{c}`: ")?;
+        }
+        if let Some(b) = self.block {
+            write!(f, "block {b}: ")?;
+        }
+        f.write_str(&self.what)
+    }
+}
+
+/// Check that the archive holds every block once, in order, and that each channel's blocks
+/// and rows add up to what the metadata records. Blocks are numbered 0, 1, 2, … in file
+/// order; a channel's blocks come in time order. Returns what is wrong (empty: complete).
+pub fn check_blocks(archive: &Archive) -> Vec<Hole> {
+    let rows = &archive.rows;
+    let mut holes = Vec::new();
+    let hole = |channel: Option<&str>, block: Option<u32>, what: String| Hole {
+        channel: channel.map(str::to_string),
+        block,
+        what,
+    };
+    let mut seen = std::collections::BTreeSet::new();
+    let mut next = 0u64;
+    let mut missing: Vec<u64> = Vec::new();
+    // Per channel: blocks, samples, and the last segment start.
+    let mut found: std::collections::BTreeMap<&str, (u64, u64, i64)> = Default::default();
+    for span in block_spans(rows) {
+        let first = &rows[span.start];
+        let b = first.block;
+        let starts = rows[span.clone()]
+            .iter()
+            .filter(|r| r.payload.is_some())
+            .count();
+        if !seen.insert(b) || starts > 1 {
+            holes.push(hole(
+                Some(&first.channel),
+                Some(b),
+                "appears more than once".into(),
+            ));
+        } else if (b as u64) > next {
+            missing.extend(next..b as u64);
+        } else if (b as u64) < next {
+            holes.push(hole(Some(&first.channel), Some(b), "out of order".into()));
+        }
+        next = next.max(b as u64 + 1);
+        let e = found
+            .entry(first.channel.as_str())
+            .or_insert((0, 0, i64::MIN));
+        if first.start_ns <= e.2 && e.0 > 0 {
+            holes.push(hole(
+                Some(&first.channel),
+                Some(b),
+                "starts before the channel's previous block".into(),
+            ));
+        }
+        e.0 += 1;
+        for r in &rows[span] {
+            e.1 += r.samples as u64;
+            e.2 = e.2.max(r.start_ns);
+        }
+    }
+    let recorded: u64 = archive.meta.channels.iter().filter_map(|c| c.blocks).sum();
+    if archive.meta.channels.iter().all(|c| c.blocks.is_some()) && recorded > next {
+        missing.extend(next..recorded);
+    }
+    // Channels short of blocks or rows name the missing blocks' owner.
+    let mut short = Vec::new();
+    for c in &archive.meta.channels {
+        let (blocks, samples, _) = found.get(c.name.as_str()).copied().unwrap_or_default();
+        let mut what = Vec::new();
+        if let Some(want) = c.blocks.filter(|&w| w != blocks) {
+            what.push(format!("{blocks} blocks, the metadata records {want}"));
+        }
+        if samples != c.rows {
+            what.push(format!("{samples} rows, the metadata records {}", c.rows));
+        }
+        if !what.is_empty() {
+            short.push(c.name.as_str());
+            holes.push(hole(Some(&c.name), None, what.join("; ")));
+        }
+    }
+    for name in found.keys() {
+        if !archive.meta.channels.iter().any(|c| c.name == *name) {
+            holes.push(hole(Some(name), None, "not in the metadata".into()));
+        }
+    }
+    let owner = match short.as_slice() {
+        [one] => Some(*one),
+        _ => None,
+    };
+    for b in missing {
+        holes.push(hole(
+            owner,
+            u32::try_from(b).ok(),
+            "missing (its rows are not in the archive)".into(),
+        ));
+    }
+    holes
 }

@@ -16,6 +16,7 @@ use parquet::file::properties::WriterProperties;
 use crate::assemble::Run;
 use crate::fit::fit_samples;
 use crate::job::{finite_rms, plan_run, RunParams};
+use crate::options::MAX_BUDGET;
 use crate::signal::{fill_non_finite, Transform};
 
 /// Bytes of the time-domain quantizer + zstd -19 on a run, with cyclarc's segmentation and
@@ -27,7 +28,7 @@ pub fn time_domain_bytes(run: &Run, p: &RunParams<'_>) -> usize {
     let mut steps: Vec<f32> = Vec::new();
     for s in &plan.segments {
         let x = &run.values[s.start..s.start + s.len];
-        let budget = p.budget.resolve(finite_rms(x));
+        let budget = p.budget.resolve(finite_rms(x)).unwrap_or(MAX_BUDGET);
         let mut filled = x.to_vec();
         fill_non_finite(&mut filled);
         let round = p
@@ -116,7 +117,7 @@ pub fn rate_distortion_bytes(run: &Run, p: &RunParams<'_>, fft: &dyn Transform) 
     let mut bits = 0.0;
     for s in &plan.segments {
         let x = &run.values[s.start..s.start + s.len];
-        let budget = p.budget.resolve(finite_rms(x));
+        let budget = p.budget.resolve(finite_rms(x)).unwrap_or(MAX_BUDGET);
         let mut filled = x.to_vec();
         fill_non_finite(&mut filled);
         let c = fft.forward(&filled);

@@ -8,7 +8,7 @@
 //!
 //! Does not: compare with sources (that is `verify`) or read files (that is `archive`).
 
-use crate::archive::{block_spans, Archive};
+use crate::archive::{block_spans, check_blocks, Archive, Hole};
 use crate::fit::{dequantize_bin, synthesize, undelta_codes, Basis, Prev};
 use crate::pack::{Block, SegmentRecord, Special, SpecialKind};
 use crate::signal::{is_real_bin, predict, Transform, ValueType, C64};
@@ -254,7 +254,9 @@ pub struct ChannelSeries {
 }
 
 /// Decode the selected channels (all when `channels` is empty), keeping samples with
-/// `from ≤ t < to`. Blocks outside the range are not unpacked.
+/// `from ≤ t < to`. Blocks outside the range are not unpacked. The archive must be whole:
+/// a missing, repeated or damaged block is [`crate::Error::Damaged`], naming the channel and
+/// the block (see [`check_blocks`]).
 pub fn decode_channels(
     archive: &Archive,
     channels: &[String],
@@ -262,8 +264,71 @@ pub fn decode_channels(
     to: Option<i64>,
     fft: &dyn Transform,
 ) -> Result<Vec<ChannelSeries>, crate::Error> {
+    decode_selected(archive, channels, from, to, fft, false).map(|d| d.series)
+}
+
+/// What a salvaging decode rebuilt, and the holes it left.
+#[derive(Debug, Clone, Default)]
+pub struct Salvaged {
+    /// The channels, without the rows of missing or damaged blocks.
+    pub series: Vec<ChannelSeries>,
+    /// Every block left out and every channel whose rows do not add up.
+    pub holes: Vec<Hole>,
+}
+
+/// Decode what is intact: like [`decode_channels`], but a missing block is reported, a
+/// repeated one is read once, and a damaged one is left out and reported, instead of
+/// refusing the archive.
+pub fn decode_salvage(
+    archive: &Archive,
+    channels: &[String],
+    from: Option<i64>,
+    to: Option<i64>,
+    fft: &dyn Transform,
+) -> Result<Salvaged, crate::Error> {
+    decode_selected(archive, channels, from, to, fft, true)
+}
+
+fn decode_selected(
+    archive: &Archive,
+    channels: &[String],
+    from: Option<i64>,
+    to: Option<i64>,
+    fft: &dyn Transform,
+    salvage: bool,
+) -> Result<Salvaged, crate::Error> {
     use rayon::prelude::*;
-    let spans = block_spans(&archive.rows);
+    let damaged = |reason: String| crate::Error::Damaged {
+        file: archive.path.clone(),
+        reason,
+    };
+    let mut holes = check_blocks(archive);
+    if !salvage && !holes.is_empty() {
+        let list: Vec<String> = holes.iter().map(|h| h.to_string()).collect();
+        return Err(damaged(format!(
+            "blocks missing or out of place: {}",
+            list.join("; ")
+        )));
+    }
+    let mut spans = block_spans(&archive.rows);
+    if salvage {
+        // A block repeated right after itself shares one span: cut spans where a payload
+        // starts a block again. Then read each block number once (its first copy).
+        let rows = &archive.rows;
+        spans = spans
+            .into_iter()
+            .flat_map(|s| {
+                let mut cuts: Vec<usize> = (s.start + 1..s.end)
+                    .filter(|&i| rows[i].payload.is_some())
+                    .collect();
+                cuts.insert(0, s.start);
+                cuts.push(s.end);
+                cuts.windows(2).map(|w| w[0]..w[1]).collect::<Vec<_>>()
+            })
+            .collect();
+        let mut seen = std::collections::BTreeSet::new();
+        spans.retain(|s| seen.insert(rows[s.start].block));
+    }
     let wanted = |name: &str| channels.is_empty() || channels.iter().any(|c| c == name);
     // A block starting at or after `to` is outside the range; so is a block whose channel's
     // next block starts at or before `from` (all its samples come earlier).
@@ -284,14 +349,32 @@ pub fn decode_channels(
         }
     }
     selected.reverse();
-    let unpacked: Vec<UnpackedBlock> = selected
+    let results: Vec<(std::ops::Range<usize>, Result<UnpackedBlock, String>)> = selected
         .into_par_iter()
-        .map(|s| unpack_block(archive, s, fft))
-        .collect::<Result<_, String>>()
-        .map_err(|reason| crate::Error::Damaged {
-            file: archive.path.clone(),
-            reason,
-        })?;
+        .map(|s| (s.clone(), unpack_block(archive, s, fft)))
+        .collect();
+    let mut unpacked = Vec::with_capacity(results.len());
+    for (span, r) in results {
+        match r {
+            Ok(u) => unpacked.push(u),
+            Err(reason) if salvage => {
+                let row = &archive.rows[span.start];
+                holes.push(Hole {
+                    channel: Some(row.channel.clone()),
+                    block: Some(row.block),
+                    what: format!(
+                        "left out, {} rows from {} ns: {reason}",
+                        archive.rows[span]
+                            .iter()
+                            .map(|r| r.samples as u64)
+                            .sum::<u64>(),
+                        row.start_ns
+                    ),
+                });
+            }
+            Err(reason) => return Err(damaged(reason)),
+        }
+    }
     let mut out: Vec<ChannelSeries> = Vec::new();
     for ub in unpacked {
         let name = &archive.rows[ub.rows.start].channel;
@@ -348,5 +431,5 @@ pub fn decode_channels(
         );
         true
     });
-    Ok(out)
+    Ok(Salvaged { series: out, holes })
 }

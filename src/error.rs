@@ -155,16 +155,81 @@ pub enum Error {
         /// What is wrong.
         reason: String,
     },
+    /// A segment's resolved budget is larger than an archive row can record (f32).
+    #[error(
+        "{}: channel `{channel}`, segment at {time_ns} ns: its budget {budget:e} is larger than \
+         an archive can record ({:e}); give an absolute budget (--budget-rms) or rescale the values",
+        file.display(), f32::MAX
+    )]
+    BudgetRange {
+        /// The source file.
+        file: PathBuf,
+        /// The channel.
+        channel: String,
+        /// The segment's first time (ns since the epoch).
+        time_ns: i64,
+        /// The resolved budget.
+        budget: f64,
+    },
+    /// An output path exists and is not a regular file (a device, FIFO, socket or folder).
+    #[error("{}: is a {kind}, not a regular file; choose another output path", file.display())]
+    NotARegularFile {
+        /// The output path.
+        file: PathBuf,
+        /// What it is.
+        kind: String,
+    },
+    /// Two columns of a source have the same name.
+    #[error(
+        "{}: column `{column}` appears twice (positions {first} and {second}); rename one",
+        file.display()
+    )]
+    DuplicateColumn {
+        /// The file.
+        file: PathBuf,
+        /// The repeated name.
+        column: String,
+        /// Position of the first (0-based).
+        first: usize,
+        /// Position of the second (0-based).
+        second: usize,
+    },
+    /// An archive did not pass verification after writing; it was taken back.
+    #[error("{}: verification failed, the archive was removed: {reason}", file.display())]
+    Unverified {
+        /// The archive.
+        file: PathBuf,
+        /// The findings.
+        reason: String,
+    },
     /// The run was interrupted (SIGTERM or SIGINT) and stopped cleanly.
     #[error("interrupted: stopped before finishing; nothing partial was published")]
     Interrupted,
 }
 
 impl Error {
+    /// Name the source file in an error raised where only the samples were known.
+    pub fn in_file(self, source: &std::path::Path) -> Error {
+        match self {
+            Error::BudgetRange {
+                file,
+                channel,
+                time_ns,
+                budget,
+            } if file.as_os_str().is_empty() => Error::BudgetRange {
+                file: source.to_path_buf(),
+                channel,
+                time_ns,
+                budget,
+            },
+            other => other,
+        }
+    }
+
     /// The process exit code for this error (documented in the README).
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::Damaged { .. } => 1,
+            Error::Damaged { .. } | Error::Unverified { .. } => 1,
             Error::Write { .. } | Error::WriteParquet { .. } => 3,
             Error::Interrupted => 4,
             _ => 2,

@@ -20,7 +20,8 @@ use rustfft::num_complex::Complex;
 use serde::Serialize;
 
 use crate::signal::{
-    fill_non_finite, half_len, is_real_bin, predict, weight, Transform, ValueType, C64,
+    fill_non_finite, half_len, is_real_bin, predict, square_scale, weight, Transform, ValueType,
+    C64,
 };
 
 /// Relative floating-point margin on reconstructed values (see the module docs).
@@ -373,41 +374,56 @@ fn measure(
     raw_y: Option<&[f64]>,
     value_type: ValueType,
 ) -> (f64, f64) {
-    let mut sum = 0.0;
-    let mut worst = 0.0;
-    let mut count = 0usize;
     let tau = raw_y.map(|y| {
         let peak = y.iter().fold(0.0f64, |a, v| a.max(v.abs()));
         FP_MARGIN_REL * peak + f64::MIN_POSITIVE
     });
-    for (i, (&x, &o)) in source.iter().zip(output).enumerate() {
-        if !x.is_finite() {
-            continue;
-        }
-        count += 1;
-        let e = o - x;
-        sum += e * e;
-        if let (Some(tau), Some(y)) = (tau, raw_y) {
-            match value_type {
-                ValueType::F64 => {
-                    let w = e.abs() + tau;
-                    worst += w * w;
-                }
-                _ => {
-                    let lo = value_type.round(y[i] - tau) - x;
-                    let hi = value_type.round(y[i] + tau) - x;
-                    worst += (lo * lo).max(hi * hi).max(e * e);
-                }
+    // Sums of the squares of (term · s), the count, and the largest |term|.
+    let pass = |s: f64| {
+        let (mut sum, mut worst, mut count, mut peak) = (0.0, 0.0, 0usize, 0.0f64);
+        for (i, (&x, &o)) in source.iter().zip(output).enumerate() {
+            if !x.is_finite() {
+                continue;
             }
-        } else {
-            worst += e * e;
+            count += 1;
+            let e = o - x;
+            peak = peak.max(e.abs());
+            let es = e * s;
+            sum += es * es;
+            if let (Some(tau), Some(y)) = (tau, raw_y) {
+                match value_type {
+                    ValueType::F64 => {
+                        let w = e.abs() + tau;
+                        peak = peak.max(w);
+                        let ws = w * s;
+                        worst += ws * ws;
+                    }
+                    _ => {
+                        let lo = value_type.round(y[i] - tau) - x;
+                        let hi = value_type.round(y[i] + tau) - x;
+                        peak = peak.max(lo.abs()).max(hi.abs());
+                        let (lo, hi) = (lo * s, hi * s);
+                        worst += (lo * lo).max(hi * hi).max(es * es);
+                    }
+                }
+            } else {
+                worst += es * es;
+            }
         }
-    }
+        (sum, worst, count, peak)
+    };
+    let (mut sum, mut worst, count, peak) = pass(1.0);
     if count == 0 {
         return (0.0, 0.0);
     }
+    // Errors so small (or large) that their squares leave f64's range are summed again at
+    // a power-of-two scale, so that a tiny error is never recorded as 0.
+    let s = square_scale(peak);
+    if s != 1.0 {
+        (sum, worst, _, _) = pass(s);
+    }
     let n = count as f64;
-    ((sum / n).sqrt(), (worst / n).sqrt())
+    ((sum / n).sqrt() / s, (worst / n).sqrt() / s)
 }
 
 /// Round a budget to the f32 that is not above it (budgets are stored as f32).

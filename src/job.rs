@@ -20,7 +20,7 @@ use crate::options::{Budget, Settings};
 use crate::pack::{encode_block, Block, BlockTimes, SegmentRecord, Special};
 use crate::read::{ChannelInfo, Source};
 use crate::segment::{plan_segments, FundamentalSetting, PlannedSegment, Planner, SegmentPlan};
-use crate::signal::{amplitude_phase, thd, RealFft, Transform, ValueType};
+use crate::signal::{amplitude_phase, rms_of, thd, RealFft, Transform, ValueType};
 
 /// Harmonics whose amplitude and phase become derived columns.
 pub const DERIVED_HARMONICS: usize = 3;
@@ -124,17 +124,9 @@ pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding> {
     Ok(RunEncoding { plan, blocks })
 }
 
-/// RMS over the finite values.
+/// RMS over the finite values (without overflow or underflow, see [`rms_of`]).
 pub fn finite_rms(x: &[f64]) -> f64 {
-    let (s, n) = x
-        .iter()
-        .filter(|v| v.is_finite())
-        .fold((0.0, 0usize), |(s, n), v| (s + v * v, n + 1));
-    if n == 0 {
-        0.0
-    } else {
-        (s / n as f64).sqrt()
-    }
+    rms_of(x.len(), |i| Some(x[i]).filter(|v| v.is_finite()))
 }
 
 /// Keep 16 significant bits of a derived value (relative rounding ≤ 2⁻¹⁶), so the low
@@ -168,7 +160,12 @@ fn encode_block_of(run: &Run, segs: &[PlannedSegment], p: &RunParams<'_>) -> Res
     for s in segs {
         let x = &run.values[s.start..s.start + s.len];
         let rms = finite_rms(x);
-        let budget = p.budget.resolve(rms);
+        let budget = p.budget.resolve(rms).map_err(|budget| Error::BudgetRange {
+            file: PathBuf::new(),
+            channel: p.channel.to_string(),
+            time_ns: run.times[s.start],
+            budget,
+        })?;
         // Tune the previous segment's stored ideal length to the measured phase advance, so
         // that this segment's prediction lines up (the decoder reads it from that segment).
         if let (Some(pv), Some(rec), Some(row)) =
@@ -506,14 +503,18 @@ pub fn encode_file(
     control: &JobControl,
 ) -> Result<EncodeSummary> {
     archive::refuse_same_file(source, out)?;
+    archive::check_output(out)?;
+    archive::check_output(&archive::digest_path(out))?;
     let source_meta = SourceMeta::of(source)?;
-    match encode_pass(source, out, settings, control, &source_meta, false)? {
+    let pass = |sort| {
+        encode_pass(source, out, settings, control, &source_meta, sort)
+            .map_err(|e| e.in_file(source))
+    };
+    match pass(false)? {
         Some(summary) => Ok(summary),
-        None => encode_pass(source, out, settings, control, &source_meta, true)?.ok_or_else(|| {
-            Error::Layout {
-                file: source.to_path_buf(),
-                reason: "could not order the rows by time".into(),
-            }
+        None => pass(true)?.ok_or_else(|| Error::Layout {
+            file: source.to_path_buf(),
+            reason: "could not order the rows by time".into(),
         }),
     }
 }
@@ -839,18 +840,24 @@ pub struct DecodeSummary {
     pub rows: u64,
     /// Channels written.
     pub channels: usize,
+    /// With `salvage`: the blocks left out and the channels whose rows do not add up.
+    pub holes: Vec<archive::Hole>,
 }
 
 /// Decode an archive (or some channels, or a time range) to Parquet in the source's layout,
-/// column names, time type and value types.
+/// column names, time type and value types. `salvage`: decode what is intact — a digest
+/// mismatch, a missing, repeated or damaged block are reported in [`DecodeSummary::holes`]
+/// instead of refusing the archive (the caller exits 1 when there are holes).
 pub fn decode_file(
     archive_path: &Path,
     out: &Path,
     channels: &[String],
     from: Option<i64>,
     to: Option<i64>,
+    salvage: bool,
 ) -> Result<DecodeSummary> {
     archive::refuse_same_file(archive_path, out)?;
+    archive::check_output(out)?;
     if let (Some(f), Some(t)) = (from, to) {
         if f >= t {
             return Err(Error::InvalidOption {
@@ -861,14 +868,23 @@ pub fn decode_file(
     }
     // The digest beside the archive covers every byte, the Parquet footer and cyclarc's
     // metadata included, which nothing inside the file checksums: a mismatch is damage.
+    let mut holes = Vec::new();
     if archive::check_digest(archive_path)? == Some(false) {
-        return Err(Error::Damaged {
-            file: archive_path.to_path_buf(),
-            reason: format!(
-                "its SHA-256 differs from the digest recorded in {} (the file changed after \
-                 it was written)",
-                archive::digest_path(archive_path).display()
-            ),
+        let reason = format!(
+            "its SHA-256 differs from the digest recorded in {} (the file changed after it \
+             was written)",
+            archive::digest_path(archive_path).display()
+        );
+        if !salvage {
+            return Err(Error::Damaged {
+                file: archive_path.to_path_buf(),
+                reason,
+            });
+        }
+        holes.push(archive::Hole {
+            channel: None,
+            block: None,
+            what: reason,
         });
     }
     let archive = archive::read_archive(archive_path)?;
@@ -880,12 +896,20 @@ pub fn decode_file(
             });
         }
     }
-    let series = crate::decode::decode_channels(&archive, channels, from, to, RealFft::shared())?;
+    let fft = RealFft::shared();
+    let series = if salvage {
+        let s = crate::decode::decode_salvage(&archive, channels, from, to, fft)?;
+        holes.extend(s.holes);
+        s.series
+    } else {
+        crate::decode::decode_channels(&archive, channels, from, to, fft)?
+    };
     let rows = crate::write::write_decoded(out, &archive.meta, &series, channels)?;
     Ok(DecodeSummary {
         archive: archive_path.to_path_buf(),
         out: out.to_path_buf(),
         rows,
         channels: series.len(),
+        holes,
     })
 }

@@ -37,7 +37,11 @@
 //!
 //! **Budgets.** Per segment, in the channel's units: absolute (`--budget-rms`), or relative to
 //! the segment's own RMS with an absolute floor (`--budget-rel`, `--budget-floor`). A budget
-//! of 0 means lossless. Resolved budgets are stored as f32, rounded down.
+//! of 0 means lossless. Resolved budgets are stored as f32, rounded down; an absolute budget
+//! no f32 holds (above `f32::MAX`, or positive below the least positive f32) is refused, and
+//! so is a relative one that resolves above `f32::MAX`. Errors are recorded as f32 rounded
+//! up, and measured at a power-of-two scale when their squares would leave f64's range, so
+//! a tiny error is never recorded as 0 ([`signal::rms_of`]).
 //!
 //! **Archive.** One Parquet file, one row per segment; the schema, its columns and the version
 //! rules are in [`archive`] and in the README. Every row of the source comes back: timestamps

@@ -47,6 +47,11 @@ enum Command {
         /// Keep samples before this time (RFC 3339, or integer ns since the epoch).
         #[arg(long)]
         to: Option<String>,
+        /// Decode what is intact: report a digest mismatch and every missing, repeated or
+        /// damaged block (by channel and number) instead of refusing; exits 1 when any
+        /// was found.
+        #[arg(long)]
+        salvage: bool,
         /// Print a JSON summary on stdout.
         #[arg(long)]
         json: bool,
@@ -200,11 +205,15 @@ fn run(cli: Cli) -> Result<i32, Error> {
             channels,
             from,
             to,
+            salvage,
             json,
         } => {
             let from = from.map(|s| parse_time(&s, "from")).transpose()?;
             let to = to.map(|s| parse_time(&s, "to")).transpose()?;
-            let s = decode_file(&archive, &out, &channels, from, to)?;
+            let s = decode_file(&archive, &out, &channels, from, to, salvage)?;
+            for h in &s.holes {
+                eprintln!("cyclarc: {}: hole: {h}", s.archive.display());
+            }
             if json {
                 print_json(&s);
             } else {
@@ -216,7 +225,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
                     s.channels
                 );
             }
-            Ok(0)
+            Ok(if s.holes.is_empty() { 0 } else { 1 })
         }
         Command::Verify {
             archive,

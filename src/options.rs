@@ -60,14 +60,31 @@ pub enum Budget {
     },
 }
 
+/// The largest budget an archive can record (budgets are stored as f32, rounded down).
+pub const MAX_BUDGET: f64 = f32::MAX as f64;
+
+/// The smallest positive budget an archive can record (the least positive f32); a positive
+/// budget below it would be stored as 0, which means lossless.
+pub const MIN_POSITIVE_BUDGET: f64 = f32::from_bits(1) as f64;
+
 impl Budget {
-    /// The budget of a segment with the given RMS, rounded down to f32.
-    pub fn resolve(&self, segment_rms: f64) -> f64 {
+    /// The budget of a segment with the given RMS, rounded down to f32. `Err` carries a
+    /// resolved budget above [`MAX_BUDGET`] (a relative budget on values beyond f32's range),
+    /// which no archive row can hold. A resolved budget below the least positive f32 is
+    /// stored as 0: that segment is coded losslessly.
+    pub fn resolve(&self, segment_rms: f64) -> std::result::Result<f64, f64> {
         let b = match *self {
             Budget::Absolute(b) => b,
             Budget::Relative { fraction, floor } => (fraction * segment_rms).max(floor),
         };
-        crate::fit::budget_to_f32(if b.is_finite() { b } else { 0.0 })
+        if b > MAX_BUDGET {
+            return Err(b);
+        }
+        Ok(crate::fit::budget_to_f32(if b.is_finite() {
+            b
+        } else {
+            0.0
+        }))
     }
 }
 
@@ -75,14 +92,28 @@ impl BudgetSpec {
     /// Validate into a [`Budget`]; `None` when neither `rms` nor `rel` is set.
     pub fn resolve(&self, name: &str) -> Result<Option<Budget>> {
         let check = |what: &str, v: f64| -> Result<f64> {
-            if v.is_finite() && v >= 0.0 {
-                Ok(v)
-            } else {
-                Err(Error::InvalidOption {
+            if !(v.is_finite() && v >= 0.0) {
+                return Err(Error::InvalidOption {
                     name: format!("{name}{what}"),
                     reason: format!("must be a finite number ≥ 0, got {v}"),
-                })
+                });
             }
+            Ok(v)
+        };
+        // Absolute values are recorded per segment as f32: refuse one that no f32 holds,
+        // rather than record another budget than the one written.
+        let storable = |what: &str, v: f64| -> Result<f64> {
+            let v = check(what, v)?;
+            if v != 0.0 && !(MIN_POSITIVE_BUDGET..=MAX_BUDGET).contains(&v) {
+                return Err(Error::InvalidOption {
+                    name: format!("{name}{what}"),
+                    reason: format!(
+                        "{v:e} cannot be recorded: archives store budgets as 32-bit floats, \
+                         0 or {MIN_POSITIVE_BUDGET:e} … {MAX_BUDGET:e} (0 means lossless)"
+                    ),
+                });
+            }
+            Ok(v)
         };
         match (self.rms, self.rel) {
             (Some(_), Some(_)) => Err(Error::InvalidOption {
@@ -96,11 +127,11 @@ impl BudgetSpec {
                         reason: "a floor applies to relative budgets only".into(),
                     });
                 }
-                Ok(Some(Budget::Absolute(check("rms", r)?)))
+                Ok(Some(Budget::Absolute(storable("rms", r)?)))
             }
             (None, Some(f)) => Ok(Some(Budget::Relative {
                 fraction: check("rel", f)?,
-                floor: check("floor", self.floor.unwrap_or(0.0))?,
+                floor: storable("floor", self.floor.unwrap_or(0.0))?,
             })),
             (None, None) => {
                 if self.floor.is_some() {

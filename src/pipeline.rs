@@ -201,7 +201,10 @@ fn expand(base: &Path, pipeline: &Path, g: &SourceGroup) -> Result<Vec<PathBuf>>
                 file: pipeline.to_path_buf(),
                 reason: format!("pattern `{pat}`: {e}"),
             })?;
-            let mut found: Vec<PathBuf> = paths.filter_map(|p| p.ok()).collect();
+            let mut found: Vec<PathBuf> = paths
+                .filter_map(|p| p.ok())
+                .filter(|p| !is_own_output(p))
+                .collect();
             found.sort();
             out.extend(found);
         } else {
@@ -210,6 +213,20 @@ fn expand(base: &Path, pipeline: &Path, g: &SourceGroup) -> Result<Vec<PathBuf>>
     }
     out.dedup();
     Ok(out)
+}
+
+/// Whether a file is one that cyclarc writes (an archive, its digest, a manifest, a lock or
+/// a temporary file): a pattern that also matches the output folder never takes them as
+/// sources.
+pub fn is_own_output(path: &Path) -> bool {
+    let Some(name) = path.file_name().map(|n| n.to_string_lossy()) else {
+        return false;
+    };
+    name.ends_with(ARCHIVE_SUFFIX)
+        || name.ends_with(&format!("{ARCHIVE_SUFFIX}.sha256"))
+        || name == MANIFEST
+        || name == LOCK
+        || (name.starts_with('.') && name.contains(".cyclarc-tmp."))
 }
 
 /// Archive file name for a source: `STEM.cyclarc.parquet`.
@@ -252,6 +269,22 @@ fn clean_stale(dir: &Path) {
     }
 }
 
+/// Take a published archive and its digest back (the archive first: a crash in between
+/// leaves a digest with no archive, never an unverified archive under its name).
+fn withdraw(archive: &Path) -> Result<()> {
+    for p in [archive.to_path_buf(), crate::archive::digest_path(archive)] {
+        match std::fs::remove_file(&p) {
+            Ok(()) => {}
+            Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+            Err(e) => return Err(Error::Write { file: p, source: e }),
+        }
+    }
+    crate::archive::sync_dir(archive).map_err(|e| Error::Write {
+        file: archive.to_path_buf(),
+        source: e,
+    })
+}
+
 /// Run a pipeline file.
 pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
     let p = load(path)?;
@@ -265,6 +298,10 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
         source: e,
     })?;
     let lock_path = out_dir.join(LOCK);
+    // The lock and the manifest are the run's own files: refuse the whole run when either
+    // is something else (a FIFO would block, a device would be replaced).
+    crate::archive::check_output(&lock_path)?;
+    crate::archive::check_output(&out_dir.join(MANIFEST))?;
     let lock = File::create(&lock_path).map_err(|e| Error::Write {
         file: lock_path.clone(),
         source: e,
@@ -316,13 +353,32 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
                 }
                 let summary = encode_file(&src, &archive, &settings, control)?;
                 let verified = if p.verify {
-                    let r = crate::verify::verify(&archive, &src, RealFft::shared())?;
-                    Some(r.passed())
+                    let checked = crate::verify::verify(&archive, &src, RealFft::shared());
+                    match checked {
+                        Ok(r) if r.passed() => Some(true),
+                        failed => {
+                            // An archive that does not verify is not kept under its name.
+                            withdraw(&archive)?;
+                            let why = match failed {
+                                Ok(r) => r
+                                    .findings
+                                    .iter()
+                                    .map(|f| f.to_string())
+                                    .collect::<Vec<_>>()
+                                    .join("; "),
+                                Err(e) => e.to_string(),
+                            };
+                            return Err(Error::Unverified {
+                                file: archive.clone(),
+                                reason: why,
+                            });
+                        }
+                    }
                 } else {
                     None
                 };
                 let (archive_sha, _) = sha256_file(&archive)?;
-                if verified != Some(false) {
+                {
                     manifest.insert(
                         name.clone(),
                         ManifestEntry {

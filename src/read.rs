@@ -17,6 +17,7 @@ use arrow::datatypes::{
 };
 use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
 use parquet::arrow::ProjectionMask;
+use parquet::file::metadata::KeyValue;
 use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
@@ -190,8 +191,36 @@ pub struct Source {
     wanted: Option<Vec<String>>,
     long_vt: ValueType,
     row: u64,
+    /// Nanoseconds per unit of the time arrays as the reader returns them.
+    read_scale: i64,
     /// Rows in the file.
     pub total_rows: u64,
+}
+
+/// The time column's type as the writer of the file declared it, from the Arrow schema
+/// embedded in the file's metadata (`ARROW:schema`). Parquet has no seconds unit and stores
+/// zoned times as UTC, so a `timestamp(s, Europe/Berlin)` column is stored as milliseconds
+/// adjusted to UTC; the Parquet reader keeps the embedded zone and unit only in some cases.
+fn declared_time_type(kv: Option<&Vec<KeyValue>>, column: &str) -> Option<TimeType> {
+    use base64::Engine;
+    let encoded = kv?
+        .iter()
+        .find(|e| e.key == "ARROW:schema")?
+        .value
+        .as_deref()?;
+    let bytes = base64::engine::general_purpose::STANDARD
+        .decode(encoded)
+        .ok()?;
+    // An IPC message, after an optional continuation marker and length.
+    let body = if bytes.len() > 8 && bytes[0..4] == [255u8; 4] {
+        &bytes[8..]
+    } else {
+        &bytes[..]
+    };
+    let message = arrow_ipc::root_as_message(body).ok()?;
+    let schema = arrow_ipc::convert::try_fb_to_schema(message.header_as_schema()?).ok()?;
+    let field = schema.field_with_name(column).ok()?;
+    time_type_of(field.data_type())
 }
 
 fn value_type_of(dt: &DataType) -> Option<ValueType> {
@@ -312,18 +341,47 @@ impl Source {
             .collect::<Vec<_>>()
             .join(", ");
         let find = |name: &str| fields.iter().position(|f| f.name() == name);
+        // A name the mapping uses must name one column: refuse a repeated one, rather than
+        // read one of the two and archive it twice (or drop the other).
+        let unique = |name: &str| -> Result<()> {
+            let mut at = fields.iter().enumerate().filter(|(_, f)| f.name() == name);
+            match (at.next(), at.next()) {
+                (Some((first, _)), Some((second, _))) => Err(Error::DuplicateColumn {
+                    file: file.clone(),
+                    column: name.to_string(),
+                    first,
+                    second,
+                }),
+                _ => Ok(()),
+            }
+        };
+        unique(&settings.time_column)?;
         let time_idx = find(&settings.time_column).ok_or_else(|| Error::MissingColumn {
             file: file.clone(),
             column: settings.time_column.clone(),
             available: available.clone(),
         })?;
-        let time_type =
+        let read_type =
             time_type_of(fields[time_idx].data_type()).ok_or_else(|| Error::WrongType {
                 file: file.clone(),
                 column: settings.time_column.clone(),
                 found: fields[time_idx].data_type().to_string(),
                 expected: "Timestamp (any unit, with or without zone) or Int64 epoch ns".into(),
             })?;
+        let read_scale = read_type.nanos_per_unit();
+        // Keep the zone and unit the file's writer declared for a timestamp column (the
+        // instants are the same; see `declared_time_type`). A coarser declared unit is kept
+        // only while every time is a whole number of it (checked as rows are read).
+        let time_type = match (
+            &read_type,
+            declared_time_type(
+                builder.metadata().file_metadata().key_value_metadata(),
+                &settings.time_column,
+            ),
+        ) {
+            (TimeType::Timestamp { .. }, Some(d @ TimeType::Timestamp { .. })) => d,
+            _ => read_type,
+        };
         let channel_col = find(&settings.channel_column);
         let value_col = find(&settings.value_column);
         let numeric: Vec<usize> = (0..fields.len())
@@ -380,6 +438,8 @@ impl Source {
                     column: settings.value_column.clone(),
                     available: available.clone(),
                 })?;
+                unique(&settings.channel_column)?;
+                unique(&settings.value_column)?;
                 let nt = name_type_of(fields[ci].data_type()).ok_or_else(|| Error::WrongType {
                     file: file.clone(),
                     column: settings.channel_column.clone(),
@@ -443,6 +503,7 @@ impl Source {
                     });
                 }
                 for &i in &wanted {
+                    unique(fields[i].name())?;
                     let vt =
                         value_type_of(fields[i].data_type()).ok_or_else(|| Error::WrongType {
                             file: file.clone(),
@@ -493,6 +554,7 @@ impl Source {
             },
             long_vt,
             row: 0,
+            read_scale,
             total_rows,
         })
     }
@@ -602,8 +664,8 @@ impl Source {
         }
     }
 
-    fn times(&self, col: &ArrayRef, first_row: u64) -> Result<Vec<i64>> {
-        let scale = self.schema.time_type.nanos_per_unit();
+    fn times(&mut self, col: &ArrayRef, first_row: u64) -> Result<Vec<i64>> {
+        let scale = self.read_scale;
         let raw: Vec<Option<i64>> = match col.data_type() {
             DataType::Timestamp(TimeUnit::Second, _) => {
                 col.as_primitive::<TimestampSecondType>().iter().collect()
@@ -645,7 +707,24 @@ impl Source {
                     expected: "times within ±292 years of 1970".into(),
                 })
             })
-            .collect()
+            .collect::<Result<Vec<i64>>>()
+            .inspect(|times| self.keep_exact_unit(times))
+    }
+
+    /// Fall back to the unit the times were read in when a declared coarser unit would not
+    /// hold them exactly (the zone stays).
+    fn keep_exact_unit(&mut self, times: &[i64]) {
+        let unit = self.schema.time_type.nanos_per_unit();
+        if unit > self.read_scale && times.iter().any(|t| t % unit != 0) {
+            if let TimeType::Timestamp { unit, .. } = &mut self.schema.time_type {
+                *unit = match self.read_scale {
+                    1_000_000 => "ms",
+                    1_000 => "us",
+                    _ => "ns",
+                }
+                .into();
+            }
+        }
     }
 }
 

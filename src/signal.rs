@@ -71,6 +71,42 @@ impl ValueType {
     }
 }
 
+/// A power of two that keeps the squares of values up to `peak` inside f64's normal range:
+/// 1 for ordinary magnitudes (2⁻⁴⁰⁰ … 2⁴⁰⁰), so ordinary sums of squares are unchanged;
+/// otherwise the scale that brings `peak` near 1. Scaling by a power of two is exact.
+pub fn square_scale(peak: f64) -> f64 {
+    const SAFE: f64 = f64::from_bits((1023 - 400) << 52); // 2⁻⁴⁰⁰
+    if !peak.is_finite() || peak == 0.0 || (SAFE..1.0 / SAFE).contains(&peak) {
+        return 1.0;
+    }
+    let e = (peak.log2().floor() as i32).clamp(-1000, 1000);
+    2f64.powi(-e)
+}
+
+/// RMS of the values `term(i)` for `i < n` that are `Some`, without overflow or underflow:
+/// the squares are summed at [`square_scale`] of the largest magnitude. 0 when none.
+pub fn rms_of(n: usize, term: impl Fn(usize) -> Option<f64>) -> f64 {
+    let (mut peak, mut count) = (0.0f64, 0usize);
+    for i in 0..n {
+        if let Some(v) = term(i) {
+            peak = peak.max(v.abs());
+            count += 1;
+        }
+    }
+    if count == 0 {
+        return 0.0;
+    }
+    let s = square_scale(peak);
+    let mut sum = 0.0;
+    for i in 0..n {
+        if let Some(v) = term(i) {
+            let v = v * s;
+            sum += v * v;
+        }
+    }
+    (sum / count as f64).sqrt() / s
+}
+
 /// Number of one-sided bins of an N-sample real DFT: ⌊N/2⌋ + 1.
 #[inline]
 pub fn half_len(n: usize) -> usize {

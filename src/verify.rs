@@ -18,7 +18,7 @@ use crate::error::{Error, Result};
 use crate::options::EncodeOptions;
 use crate::pack::SpecialKind;
 use crate::read::Source;
-use crate::signal::{Transform, ValueType};
+use crate::signal::{rms_of, Transform, ValueType};
 
 /// Relative slack when comparing a recomputed error with the recorded (f32, rounded-up) one:
 /// summation order may differ between machines.
@@ -65,6 +65,18 @@ pub struct VerifyReport {
     pub channels: Vec<ChannelCheck>,
     /// Problems (empty means the archive passed).
     pub findings: Vec<Finding>,
+}
+
+impl std::fmt::Display for Finding {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        if let Some(c) = &self.channel {
+            write!(f, "channel `{c}`: ")?;
+        }
+        if let Some(t) = self.start_ns {
+            write!(f, "segment at {t} ns: ")?;
+        }
+        f.write_str(&self.what)
+    }
 }
 
 impl VerifyReport {
@@ -273,18 +285,15 @@ fn check_channel(
     }
     for (row, range) in &dec.segments {
         let r = &archive.rows[*row];
-        let (mut sum, mut n, mut max_abs) = (0.0f64, 0usize, 0.0f64);
-        for i in range.clone() {
+        let error_at = |j: usize| {
+            let i = range.start + j;
             let (x, y) = (src.values[i], dec.values[i]);
-            if !x.is_finite() {
-                continue;
-            }
-            let e = y - x;
-            sum += e * e;
-            n += 1;
-            max_abs = max_abs.max(e.abs());
-        }
-        let err = if n > 0 { (sum / n as f64).sqrt() } else { 0.0 };
+            x.is_finite().then_some(y - x)
+        };
+        let err = rms_of(range.len(), error_at);
+        let max_abs = (0..range.len())
+            .filter_map(error_at)
+            .fold(0.0f64, |m, e| m.max(e.abs()));
         let budget = r.budget_rms as f64;
         check.worst_error_rms = check.worst_error_rms.max(err);
         check.max_abs_error = check.max_abs_error.max(max_abs);

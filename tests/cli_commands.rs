@@ -390,7 +390,7 @@ fn json_outputs_parse_and_agree_with_the_files() {
         .map(|c| c["channel"].as_str().expect("name"))
         .collect();
     assert_eq!(names, ["a", "b", "c"]);
-    assert_eq!(ij["format"], "1.0");
+    assert_eq!(ij["format"], cyclarc::archive::FORMAT_VERSION);
     let d = s.run(&["decode", ps(&arch), "--out", ps(&dec), "--json"]);
     let dj = d.expect(0).json();
     assert_eq!(dj["rows"], (3 * N) as u64);

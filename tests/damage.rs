@@ -225,11 +225,16 @@ fn damaged_cyclarc_metadata_is_reported() {
     let (src, arch, clean) = archived(&lab);
     let good = std::fs::read(&arch).expect("archive");
     let dp = digest_of(&arch);
-    let meta = find(&good, b"{\"format\":\"1.0\"").expect("cyclarc.meta JSON in the footer");
+    let meta = find(
+        &good,
+        format!("{{\"format\":\"{}\"", cyclarc::archive::FORMAT_VERSION).as_bytes(),
+    )
+    .expect("cyclarc.meta JSON in the footer");
     let vt = meta + find(&good[meta..], b"\"value_type\":\"f32\"").expect("a value type") + 14;
     let chan = meta + find(&good[meta..], b"\"name\":\"accel\"").expect("a channel name") + 8;
     let key = find(&good, b"cyclarc.format").expect("format key");
-    let version = key + find(&good[key..], b"1.0").expect("format value");
+    let version = key
+        + find(&good[key..], cyclarc::archive::FORMAT_VERSION.as_bytes()).expect("format value");
     let rate = meta + find(&good[meta..], b"\"sample_rate_hz\":2000.0").expect("rate") + 17;
     // cyclarc.meta carries its own CRC-32 (cyclarc.meta.crc32): any change to the JSON is
     // caught by the reader; the format key beside it is read first.

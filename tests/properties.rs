@@ -194,7 +194,9 @@ fn signal(c: &Case) -> Vec<f64> {
 }
 
 fn options(c: &Case, x: &[f64]) -> EncodeOptions {
-    let rms = finite_rms_of(x).max(f64::MIN_POSITIVE);
+    // A silent signal gets budgets scaled from 1e-30: archives record budgets as f32, whose
+    // least positive value is 1.4e-45 (IEEE 754 binary32), and refuse smaller ones.
+    let rms = finite_rms_of(x).max(1e-30);
     let mut o = EncodeOptions {
         block_segments: c.block_segments,
         fundamental: Some(match c.fundamental {

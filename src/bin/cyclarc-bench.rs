@@ -702,7 +702,9 @@ impl Bench {
         let t0 = Instant::now();
         let (encode_s, summary) = timed(reps, || Ok(encode_file(src, &arc, &s, &control)?))?;
         let encode_cpus_used = (cpu_seconds(libc::RUSAGE_SELF) - cpu0) / t0.elapsed().as_secs_f64();
-        let (decode_s, d) = timed(reps, || Ok(decode_file(&arc, &dec, &[], None, None)?))?;
+        let (decode_s, d) = timed(reps, || {
+            Ok(decode_file(&arc, &dec, &[], None, None, false)?)
+        })?;
         if d.rows as usize != n {
             bail!("{}: decoded {} rows of {n}", arc.display(), d.rows);
         }
