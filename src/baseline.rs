@@ -13,10 +13,10 @@ use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, Encoding, ZstdLevel};
 use parquet::file::properties::WriterProperties;
 
-use crate::assemble::Run;
-use crate::fit::fit_samples;
-use crate::job::{finite_rms, plan_run, RunParams};
-use crate::options::MAX_BUDGET;
+use crate::codec::encode::{finite_rms, plan_run, RunParams};
+use crate::codec::fit::fit_samples;
+use crate::codec::params::MAX_BUDGET;
+use crate::model::Run;
 use crate::signal::{fill_non_finite, Transform};
 
 /// Bytes of the time-domain quantizer + zstd -19 on a run, with cyclarc's segmentation and
@@ -37,7 +37,7 @@ pub fn time_domain_bytes(run: &Run, p: &RunParams<'_>) -> usize {
         match fit_samples(x, &filled, p.value_type, budget, round) {
             Some(f) => {
                 let q = if f.plan.predicted {
-                    crate::fit::undelta_codes(&f.codes)
+                    crate::codec::quant::undelta_codes(&f.codes)
                 } else {
                     f.codes
                 };

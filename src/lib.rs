@@ -3,16 +3,27 @@
 //! Archives periodic sensor logs (vibration, motor current) as truncated Fourier series with
 //! a per-segment RMS error bound that the decoder is checked against.
 //!
-//! The pipeline has one module per stage:
+//! ## The layers
+//!
+//! The library is built in layers; each uses only the layers below it:
 //!
 //! ```text
-//! encode:  read → assemble → segment → fit → pack → archive (write)
-//! decode:  archive (read) → pack (unpack) → decode (rebuild) → verify
+//! main.rs, report            the command line and its tables and JSON
+//! jobs                       encode, stream, decode, verify, pipeline: what the commands do
+//! options                    the one options type (flags and pipelines/*.toml), resolved once
+//! source        archive      Parquet sources in and decoded Parquet out | the archive file
+//! codec                      samples ↔ coded blocks: params, segment, fit, quant, frame,
+//!                            encode, decode; never names Parquet, paths or columns
+//! signal        fsio         FFT and signal maths | durable files, digests, safe Parquet open
+//! model         error        the shared vocabulary | the error type and exit codes
 //! ```
 //!
-//! [`job`] drives one source file through the stages, [`pipeline`] drives many (manifest,
-//! reruns), [`report`] renders tables and JSON, and [`options`] is the one options type that
-//! both the command line and `pipelines/*.toml` fill.
+//! Encoding a file: [`source`] reads and assembles runs, [`codec::encode`] plans, fits and
+//! packs them into [`codec::EncodedBlock`]s, [`archive::ArchiveWriter`] writes them; the
+//! scheduler in [`jobs::stream`] overlaps the three. Decoding: [`Archive::open`] reads and
+//! checks the file, [`archive::decode_channels`] rebuilds channels with [`codec::decode`],
+//! and [`source::write_decoded`] writes them in the source's layout. [`jobs::verify()`]
+//! recomputes every segment's error against the source.
 //!
 //! ## Conventions
 //!
@@ -31,9 +42,10 @@
 //! the source's value type: rounding to f32, or to integer ADC counts, is part of the error.
 //! With quantizer step Δ and prediction p, the error energy over the N samples of order L is
 //! `Σ_{k<L} w_k |c_k − p_k − Δ·q_k|² + Σ_{k≥L} w_k |c_k|²`, computed for every L from one FFT
-//! ([`fit::error_by_order`]). The encoder picks the least L whose energy meets the segment's
+//! ([`codec::fit::error_by_order`]). The encoder picks the least L whose energy meets the segment's
 //! target, synthesizes the decoder's output, measures the true error and only records a segment
-//! whose error, widened by a floating-point margin (see [`fit`]), stays within the budget.
+//! whose error, widened by a floating-point margin (see [`codec::fit`]), stays within the
+//! budget.
 //!
 //! **Budgets.** Per segment, in the channel's units: absolute (`--budget-rms`), or relative to
 //! the segment's own RMS with an absolute floor (`--budget-rel`, `--budget-floor`). A budget
@@ -55,21 +67,19 @@
 #![allow(clippy::neg_cmp_op_on_partial_ord)]
 
 pub mod archive;
-pub mod assemble;
 pub mod baseline;
-pub mod decode;
+pub mod codec;
 pub mod error;
-pub mod fit;
-pub mod job;
+pub mod fsio;
+pub mod jobs;
+pub mod model;
 pub mod options;
-pub mod pack;
-pub mod pipeline;
-pub mod read;
 pub mod report;
-pub mod segment;
 pub mod signal;
+pub mod source;
 pub mod stop;
-pub mod verify;
-pub mod write;
 
+pub use archive::{Archive, DigestPolicy};
 pub use error::{Error, Result};
+pub use jobs::{decode_file, encode_file, verify, JobControl};
+pub use options::{EncodeOptions, Settings};

@@ -7,11 +7,10 @@ use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
 
-use cyclarc::error::Error;
-use cyclarc::job::{decode_file, encode_file, JobControl};
+use cyclarc::jobs::pipeline;
 use cyclarc::options::{EncodeOptions, Layout};
 use cyclarc::signal::RealFft;
-use cyclarc::{archive, pipeline, report, verify};
+use cyclarc::{decode_file, encode_file, report, Archive, DigestPolicy, Error, JobControl};
 
 #[derive(Parser)]
 #[command(
@@ -232,7 +231,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
             source,
             json,
         } => {
-            let r = verify::verify(&archive, &source, RealFft::shared())?;
+            let r = cyclarc::verify(&archive, &source, RealFft::shared())?;
             if json {
                 print_json(&r);
             } else {
@@ -241,7 +240,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
             Ok(if r.passed() { 0 } else { 1 })
         }
         Command::Inspect { archive, json } => {
-            let a = archive::read_archive(&archive)?;
+            let a = Archive::open(&archive, DigestPolicy::Skip)?;
             let i = report::inspect(&a);
             if json {
                 print_json(&i);
@@ -284,7 +283,7 @@ fn main() -> ExitCode {
     let cli = Cli::parse();
     // The parquet reader panics on some damaged files; those panics become errors that name
     // the file, and print nothing else.
-    cyclarc::read::quiet_contained_panics();
+    cyclarc::fsio::quiet_contained_panics();
     if let Err(e) = cyclarc::stop::install() {
         eprintln!("cyclarc: cannot install the SIGTERM handler: {e}");
     }

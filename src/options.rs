@@ -6,33 +6,14 @@
 
 use serde::{Deserialize, Serialize};
 
-use crate::error::{Error, Result};
-use crate::segment::{
-    FundamentalSetting, SegmentSettings, DEFAULT_FALLBACK_SEGMENT_SECONDS, DEFAULT_MIN_CONFIDENCE,
-    DEFAULT_MIN_SEGMENT_SECONDS,
+pub use crate::codec::params::{
+    Budget, CodecParams, DEFAULT_BLOCK_SAMPLES, DEFAULT_BLOCK_SEGMENTS, DEFAULT_BUDGET_REL,
+    DEFAULT_ZSTD_LEVEL, MAX_BUDGET, MIN_POSITIVE_BUDGET,
 };
-
-/// Default zstd level for blocks.
-pub const DEFAULT_ZSTD_LEVEL: i32 = 19;
-
-/// Default most segments per block.
-pub const DEFAULT_BLOCK_SEGMENTS: usize = 256;
-
-/// Default most samples per block.
-pub const DEFAULT_BLOCK_SAMPLES: usize = 1 << 18;
-
-/// Default relative budget when none is given: 0.5 % of each segment's RMS.
-pub const DEFAULT_BUDGET_REL: f64 = 0.005;
-
-/// Source layout.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
-#[serde(rename_all = "lowercase")]
-pub enum Layout {
-    /// One row per sample: time, channel, value.
-    Long,
-    /// One row per time: time plus one numeric column per channel.
-    Wide,
-}
+use crate::codec::segment::FundamentalSetting;
+use crate::error::{Error, Result};
+pub use crate::model::Layout;
+pub use crate::source::Mapping;
 
 /// A budget as written by the user (exactly one of `rms` and `rel`).
 #[derive(Debug, Clone, Copy, PartialEq, Default, Serialize, Deserialize)]
@@ -44,48 +25,6 @@ pub struct BudgetSpec {
     pub rel: Option<f64>,
     /// Absolute floor under a relative budget (channel units). Default 0.
     pub floor: Option<f64>,
-}
-
-/// A resolved budget rule.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
-pub enum Budget {
-    /// ε = value (channel units).
-    Absolute(f64),
-    /// ε = max(fraction · segment RMS, floor).
-    Relative {
-        /// Fraction of the segment RMS.
-        fraction: f64,
-        /// Absolute floor.
-        floor: f64,
-    },
-}
-
-/// The largest budget an archive can record (budgets are stored as f32, rounded down).
-pub const MAX_BUDGET: f64 = f32::MAX as f64;
-
-/// The smallest positive budget an archive can record (the least positive f32); a positive
-/// budget below it would be stored as 0, which means lossless.
-pub const MIN_POSITIVE_BUDGET: f64 = f32::from_bits(1) as f64;
-
-impl Budget {
-    /// The budget of a segment with the given RMS, rounded down to f32. `Err` carries a
-    /// resolved budget above [`MAX_BUDGET`] (a relative budget on values beyond f32's range),
-    /// which no archive row can hold. A resolved budget below the least positive f32 is
-    /// stored as 0: that segment is coded losslessly.
-    pub fn resolve(&self, segment_rms: f64) -> std::result::Result<f64, f64> {
-        let b = match *self {
-            Budget::Absolute(b) => b,
-            Budget::Relative { fraction, floor } => (fraction * segment_rms).max(floor),
-        };
-        if b > MAX_BUDGET {
-            return Err(b);
-        }
-        Ok(crate::fit::budget_to_f32(if b.is_finite() {
-            b
-        } else {
-            0.0
-        }))
-    }
 }
 
 impl BudgetSpec {
@@ -194,35 +133,54 @@ pub struct EncodeOptions {
     pub block_segments: Option<usize>,
 }
 
-/// Validated settings for the stages.
-#[derive(Debug, Clone, PartialEq, Serialize)]
+/// Validated settings: what the source reader needs and what the codec needs, split once.
+#[derive(Debug, Clone, PartialEq)]
 pub struct Settings {
-    /// Default budget.
-    pub budget: Budget,
-    /// Per-channel rules (pattern, budget), first match wins.
-    pub budget_rules: Vec<(String, Budget)>,
-    /// Fundamental.
-    pub fundamental: FundamentalSetting,
-    /// Cycles per segment.
-    pub cycles_per_segment: Option<u32>,
-    /// Layout (None: detect).
-    pub layout: Option<Layout>,
-    /// Time column.
-    pub time_column: String,
-    /// Channel column.
-    pub channel_column: String,
-    /// Value column.
-    pub value_column: String,
-    /// Channel filter.
-    pub channels: Option<Vec<String>>,
-    /// Sample rate override.
-    pub sample_rate_hz: Option<f64>,
-    /// zstd level.
-    pub zstd_level: i32,
-    /// Most segments per block.
-    pub block_segments: usize,
-    /// Most samples per block.
-    pub block_samples: usize,
+    /// Column mapping and sample rate, for the source reader.
+    pub source: Mapping,
+    /// Budgets, segmentation and levels, for the codec.
+    pub codec: CodecParams,
+}
+
+/// The settings as recorded in archives and manifests: one flat record, in a fixed field
+/// order, so that the recorded bytes do not depend on how the settings are grouped in code.
+#[derive(Serialize)]
+struct SettingsRecord<'a> {
+    budget: &'a Budget,
+    budget_rules: &'a [(String, Budget)],
+    fundamental: &'a FundamentalSetting,
+    cycles_per_segment: Option<u32>,
+    layout: Option<Layout>,
+    time_column: &'a str,
+    channel_column: &'a str,
+    value_column: &'a str,
+    channels: &'a Option<Vec<String>>,
+    sample_rate_hz: Option<f64>,
+    zstd_level: i32,
+    block_segments: usize,
+    block_samples: usize,
+}
+
+impl Serialize for Settings {
+    fn serialize<S: serde::Serializer>(&self, s: S) -> std::result::Result<S::Ok, S::Error> {
+        let (m, c) = (&self.source, &self.codec);
+        SettingsRecord {
+            budget: &c.budget,
+            budget_rules: &c.budget_rules,
+            fundamental: &c.fundamental,
+            cycles_per_segment: c.cycles_per_segment,
+            layout: m.layout,
+            time_column: &m.time_column,
+            channel_column: &m.channel_column,
+            value_column: &m.value_column,
+            channels: &m.channels,
+            sample_rate_hz: m.sample_rate_hz,
+            zstd_level: c.zstd_level,
+            block_segments: c.block_segments,
+            block_samples: c.block_samples,
+        }
+        .serialize(s)
+    }
 }
 
 impl EncodeOptions {
@@ -332,47 +290,31 @@ impl EncodeOptions {
             });
         }
         Ok(Settings {
-            budget,
-            budget_rules,
-            fundamental,
-            cycles_per_segment: self.cycles_per_segment,
-            layout: self.layout,
-            time_column: self.time_column.clone().unwrap_or_else(|| "time".into()),
-            channel_column: self
-                .channel_column
-                .clone()
-                .unwrap_or_else(|| "channel".into()),
-            value_column: self.value_column.clone().unwrap_or_else(|| "value".into()),
-            channels: self.channels.clone(),
-            sample_rate_hz: self.sample_rate_hz,
-            zstd_level,
-            block_segments,
-            block_samples: DEFAULT_BLOCK_SAMPLES,
+            source: Mapping {
+                layout: self.layout,
+                time_column: self.time_column.clone().unwrap_or_else(|| "time".into()),
+                channel_column: self
+                    .channel_column
+                    .clone()
+                    .unwrap_or_else(|| "channel".into()),
+                value_column: self.value_column.clone().unwrap_or_else(|| "value".into()),
+                channels: self.channels.clone(),
+                sample_rate_hz: self.sample_rate_hz,
+            },
+            codec: CodecParams {
+                budget,
+                budget_rules,
+                fundamental,
+                cycles_per_segment: self.cycles_per_segment,
+                zstd_level,
+                block_segments,
+                block_samples: DEFAULT_BLOCK_SAMPLES,
+            },
         })
     }
 }
 
 impl Settings {
-    /// The budget for a channel: the first matching rule, else the default.
-    pub fn budget_for(&self, channel: &str) -> Budget {
-        self.budget_rules
-            .iter()
-            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
-            .map_or(self.budget, |(_, b)| *b)
-    }
-
-    /// Segmentation settings for a sample rate.
-    pub fn segment_settings(&self, sample_rate: f64) -> SegmentSettings {
-        SegmentSettings {
-            sample_rate,
-            fundamental: self.fundamental,
-            cycles_per_segment: self.cycles_per_segment,
-            min_segment_seconds: DEFAULT_MIN_SEGMENT_SECONDS,
-            fallback_segment_seconds: DEFAULT_FALLBACK_SEGMENT_SECONDS,
-            min_confidence: DEFAULT_MIN_CONFIDENCE,
-        }
-    }
-
     /// The settings that change the archive's bytes, as a stable string (for the manifest
     /// and the archive metadata).
     pub fn fingerprint(&self) -> String {
@@ -418,7 +360,7 @@ mod tests {
             ..Default::default()
         };
         let s = o.resolve().unwrap();
-        assert_eq!(s.budget_for("p201.de"), Budget::Absolute(0.5));
-        assert_eq!(s.budget_for("p202.de"), Budget::Absolute(1.0));
+        assert_eq!(s.codec.budget_for("p201.de"), Budget::Absolute(0.5));
+        assert_eq!(s.codec.budget_for("p202.de"), Budget::Absolute(1.0));
     }
 }

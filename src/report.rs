@@ -9,10 +9,10 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use crate::archive::{Archive, DERIVED_COLUMNS, PAYLOAD_COLUMNS};
-use crate::fit::Basis;
-use crate::job::EncodeSummary;
-use crate::verify::VerifyReport;
+use crate::archive::schema::{DERIVED_COLUMNS, PAYLOAD_COLUMNS};
+use crate::archive::Archive;
+use crate::jobs::{EncodeSummary, VerifyReport};
+use crate::model::Basis;
 
 /// One channel in `inspect`.
 #[derive(Debug, Clone, Serialize)]
@@ -96,11 +96,11 @@ pub fn inspect(a: &Archive) -> Inspect {
     let mut channels = Vec::new();
     for cm in &a.meta.channels {
         let rows: Vec<_> = a.rows.iter().filter(|r| r.channel == cm.name).collect();
-        let mut orders: Vec<u32> = rows.iter().filter_map(|r| r.order).collect();
+        let mut orders: Vec<u32> = rows.iter().filter_map(|r| r.seg.order).collect();
         orders.sort_unstable();
         let mut basis = BTreeMap::new();
         for b in [Basis::Fourier, Basis::Samples, Basis::Lossless] {
-            let n = rows.iter().filter(|r| r.basis == b).count();
+            let n = rows.iter().filter(|r| r.seg.basis == b).count();
             if n > 0 {
                 basis.insert(b.name().to_string(), n);
             }
@@ -110,11 +110,11 @@ pub fn inspect(a: &Archive) -> Inspect {
             .filter_map(|r| r.payload.as_ref().map(|p| p.len() as u64 + 4))
             .sum();
         let bytes = pay + (other * rows.len() as f64 / total_rows).round() as u64;
-        let samples: u64 = rows.iter().map(|r| r.samples as u64).sum();
+        let samples: u64 = rows.iter().map(|r| r.seg.samples as u64).sum();
         let worst = rows
             .iter()
-            .filter(|r| r.budget_rms > 0.0)
-            .map(|r| r.error_rms as f64 / r.budget_rms as f64)
+            .filter(|r| r.seg.budget_rms > 0.0)
+            .map(|r| r.seg.error_rms as f64 / r.seg.budget_rms as f64)
             .fold(0.0, f64::max);
         channels.push(ChannelInspect {
             channel: cm.name.clone(),
@@ -297,7 +297,7 @@ pub fn encode_text(e: &EncodeSummary) -> String {
             ("not_periodic", _, _) => notes.push_str(&format!(
                 "  {}: no periodicity found; cut into fixed {:.0} ms segments\n",
                 c.name,
-                crate::segment::DEFAULT_FALLBACK_SEGMENT_SECONDS * 1e3
+                crate::codec::segment::DEFAULT_FALLBACK_SEGMENT_SECONDS * 1e3
             )),
             ("estimated", Some(hz), Some(r)) => notes.push_str(&format!(
                 "  {}: fundamental estimated at {hz:.4} Hz (autocorrelation {r:.2} at its period)\n",

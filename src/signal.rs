@@ -10,66 +10,9 @@ use std::sync::{Arc, Mutex, OnceLock};
 use realfft::{ComplexToReal, RealFftPlanner, RealToComplex};
 use rustfft::num_complex::Complex;
 use rustfft::{Fft, FftPlannerScalar};
-use serde::{Deserialize, Serialize};
 
 /// Complex f64.
 pub type C64 = Complex<f64>;
-
-/// The value type of a channel in the source, which is also the decoder's output type.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum ValueType {
-    /// 64-bit float.
-    F64,
-    /// 32-bit float.
-    F32,
-    /// 16-bit signed integer (ADC counts).
-    I16,
-    /// 32-bit signed integer (ADC counts).
-    I32,
-}
-
-impl ValueType {
-    /// Round a reconstructed value to what the decoder outputs in this type (as f64).
-    /// Integers round half away from zero and saturate at the type's range.
-    #[inline]
-    pub fn round(self, y: f64) -> f64 {
-        match self {
-            ValueType::F64 => y,
-            ValueType::F32 => y as f32 as f64,
-            ValueType::I16 => y.round().clamp(i16::MIN as f64, i16::MAX as f64),
-            ValueType::I32 => y.round().clamp(i32::MIN as f64, i32::MAX as f64),
-        }
-    }
-
-    /// The mean-square error that rounding to this type adds at magnitude `scale`
-    /// (uniform rounding: q²/12, J. O. Smith, "Mathematics of the DFT", round-off error variance).
-    pub fn rounding_mse(self, scale: f64) -> f64 {
-        match self {
-            ValueType::F64 => 0.0,
-            ValueType::F32 => {
-                let q = scale.abs() * f32::EPSILON as f64;
-                q * q / 12.0
-            }
-            ValueType::I16 | ValueType::I32 => 1.0 / 12.0,
-        }
-    }
-
-    /// Whether values are integers.
-    pub fn is_integer(self) -> bool {
-        matches!(self, ValueType::I16 | ValueType::I32)
-    }
-
-    /// Name used in the archive metadata and reports.
-    pub fn name(self) -> &'static str {
-        match self {
-            ValueType::F64 => "f64",
-            ValueType::F32 => "f32",
-            ValueType::I16 => "i16",
-            ValueType::I32 => "i32",
-        }
-    }
-}
 
 /// A power of two that keeps the squares of values up to `peak` inside f64's normal range:
 /// 1 for ordinary magnitudes (2⁻⁴⁰⁰ … 2⁴⁰⁰), so ordinary sums of squares are unchanged;

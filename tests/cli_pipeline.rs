@@ -320,7 +320,7 @@ fn demo_pipeline_runs_and_inspect_lists_every_channel() {
 #[test]
 fn nightly_example_pipeline_loads_and_validates() {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines/nightly-example.toml");
-    let p = cyclarc::pipeline::load(&path).unwrap_or_else(|e| panic!("{e}"));
+    let p = cyclarc::jobs::pipeline::load(&path).unwrap_or_else(|e| panic!("{e}"));
     assert!(p.verify);
     assert_eq!(p.sources.len(), 3);
     assert!(p.output.is_absolute());
@@ -328,19 +328,22 @@ fn nightly_example_pipeline_loads_and_validates() {
     for g in &p.sources {
         let st = p.encode.overlay(&g.encode).resolve().expect("valid group");
         assert_eq!(
-            st.budget_for("kb.psr.p2.nde.accel"),
+            st.codec.budget_for("kb.psr.p2.nde.accel"),
             Budget::Absolute(0.006)
         );
-        assert_eq!(st.budget_for("kb.psn.p1.de.accel"), Budget::Absolute(0.004));
         assert_eq!(
-            st.budget_for("kb.pse.p3.ib"),
+            st.codec.budget_for("kb.psn.p1.de.accel"),
+            Budget::Absolute(0.004)
+        );
+        assert_eq!(
+            st.codec.budget_for("kb.pse.p3.ib"),
             Budget::Relative {
                 fraction: 0.005,
                 floor: 1.0
             }
         );
         assert_eq!(
-            st.budget_for("kb.psn.p1.bearing_temp"),
+            st.codec.budget_for("kb.psn.p1.bearing_temp"),
             Budget::Relative {
                 fraction: 0.005,
                 floor: 0.0005
@@ -353,8 +356,8 @@ fn nightly_example_pipeline_loads_and_validates() {
         .resolve()
         .expect("motor");
     assert_eq!(
-        motor.fundamental,
-        cyclarc::segment::FundamentalSetting::Hz(60.0)
+        motor.codec.fundamental,
+        cyclarc::codec::segment::FundamentalSetting::Hz(60.0)
     );
-    assert_eq!(motor.cycles_per_segment, Some(12));
+    assert_eq!(motor.codec.cycles_per_segment, Some(12));
 }

@@ -29,10 +29,12 @@ mod common;
 use std::f64::consts::PI;
 
 use common::*;
-use cyclarc::fit::{error_by_order, fit_segment, Basis, SegmentInput};
-use cyclarc::job::{encode_run, RunParams};
+use cyclarc::codec::fit::{error_by_order, fit_segment, SegmentInput};
+use cyclarc::codec::{encode_run, RunParams};
+use cyclarc::model::Basis;
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::signal::{half_len, thd, weight, RealFft, Transform, ValueType, C64};
+use cyclarc::signal::{half_len, thd, weight, RealFft, Transform, C64};
 
 #[derive(Clone, Copy, Debug, PartialEq)]
 enum Wave {
@@ -587,12 +589,12 @@ fn thd_from_stored_coefficients_is_the_closed_form_over_the_kept_harmonics() {
                 channel: "w",
                 value_type: ValueType::F64,
                 sample_rate: Some(fs),
-                budget: s.budget,
-                settings: &s,
+                budget: s.codec.budget,
+                params: &s.codec,
                 fft: RealFft::shared(),
             };
             let enc = encode_run(&run, &p).unwrap();
-            let rows: Vec<_> = enc.blocks.iter().flat_map(|b| b.rows.iter()).collect();
+            let rows: Vec<_> = enc.blocks.iter().flat_map(|b| b.segments.iter()).collect();
             let mut checked = 0;
             let mut first = None;
             for (d, row) in decode_run(&enc, RealFft::shared()).iter().zip(rows) {
@@ -743,7 +745,7 @@ fn gibbs_peak_of_truncated_square_wave_sits_at_pi_over_2n_with_the_tabled_values
             .skip(2 * nn)
             .for_each(|v| *v = C64::new(0.0, 0.0));
         let (y, _) =
-            cyclarc::fit::synthesize(&kept[..2 * nn], m, ValueType::F64, RealFft::shared());
+            cyclarc::codec::synthesize(&kept[..2 * nn], m, ValueType::F64, RealFft::shared());
         // Location: the maximum over (0, π/2] (the partial sum is symmetric about π/2).
         let idx = (1..=m / 4).max_by(|&a, &b| y[a].total_cmp(&y[b])).unwrap();
         assert_eq!(idx, m / (4 * nn), "n={nn}: peak at sample {idx}");

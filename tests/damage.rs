@@ -138,7 +138,7 @@ fn flipped_payload_bits_fail_verify_and_decode() {
     let lab = Lab::new();
     let (src, arch, _) = archived(&lab);
     let good = std::fs::read(&arch).expect("archive");
-    let a = cyclarc::archive::read_archive(&arch).expect("archive reads");
+    let a = cyclarc::Archive::open(&arch, cyclarc::DigestPolicy::Skip).expect("archive reads");
     let frames: Vec<Vec<u8>> = a.rows.iter().filter_map(|r| r.payload.clone()).collect();
     assert!(
         frames.len() >= 4,
@@ -475,8 +475,8 @@ fn a_footer_that_panics_the_parquet_reader_is_reported_without_a_panic_message()
     with_negative_chunk_size(&arch, &bad);
     // Through the library: an error, not a panic (and, with the hook the command line
     // installs, no panic message either).
-    cyclarc::read::quiet_contained_panics();
-    let r = catch_unwind(|| cyclarc::archive::read_archive(&bad).map(|_| ()));
+    cyclarc::fsio::quiet_contained_panics();
+    let r = catch_unwind(|| cyclarc::Archive::open(&bad, cyclarc::DigestPolicy::Skip).map(|_| ()));
     match r {
         Ok(Err(cyclarc::Error::Damaged { .. })) => {}
         other => panic!("expected Damaged, got {other:?}"),
@@ -573,10 +573,10 @@ type Decoded = Vec<(
     String,
     Vec<i64>,
     Vec<u64>,
-    Vec<(usize, cyclarc::pack::SpecialKind)>,
+    Vec<(usize, cyclarc::model::SpecialKind)>,
 )>;
 
-fn fingerprint(series: &[cyclarc::decode::ChannelSeries]) -> Decoded {
+fn fingerprint(series: &[cyclarc::model::ChannelSeries]) -> Decoded {
     series
         .iter()
         .map(|s| {
@@ -596,11 +596,11 @@ fn random_damage_never_panics_the_library() {
     let (_, arch, _) = archived(&lab);
     // A digest would only short-cut the decode command, not the library calls made here.
     let good = std::fs::read(&arch).expect("archive");
-    let a = cyclarc::archive::read_archive(&arch).expect("archive reads");
+    let a = cyclarc::Archive::open(&arch, cyclarc::DigestPolicy::Skip).expect("archive reads");
     let frames: Vec<Vec<u8>> = a.rows.iter().filter_map(|r| r.payload.clone()).collect();
     let raws: Vec<Vec<u8>> = frames
         .iter()
-        .map(|f| cyclarc::pack::decompress(f).expect("clean frame decompresses"))
+        .map(|f| cyclarc::codec::frame::decompress(f).expect("clean frame decompresses"))
         .collect();
     let fft = cyclarc::signal::RealFft::shared();
     let target = lab.path("m.cyclarc.parquet");
@@ -614,7 +614,7 @@ fn random_damage_never_panics_the_library() {
     let mut escaped: Vec<String> = Vec::new();
     let mut silent: Vec<String> = Vec::new();
     let clean = fingerprint(
-        &cyclarc::decode::decode_channels(&a, &[], None, None, fft).expect("clean decode"),
+        &cyclarc::archive::decode_channels(&a, &[], None, None, fft).expect("clean decode"),
     );
     while started.elapsed() < budget {
         // 1. A damaged archive file through read_archive and decode_channels.
@@ -623,8 +623,8 @@ fn random_damage_never_panics_the_library() {
         files += 1;
         let inside_before = CAUGHT_INSIDE.load(Ordering::Relaxed);
         let res = catch_unwind(AssertUnwindSafe(|| {
-            match cyclarc::archive::read_archive(&target) {
-                Ok(a) => match cyclarc::decode::decode_channels(&a, &[], None, None, fft) {
+            match cyclarc::Archive::open(&target, cyclarc::DigestPolicy::Skip) {
+                Ok(a) => match cyclarc::archive::decode_channels(&a, &[], None, None, fft) {
                     Ok(series) => (true, Some(fingerprint(&series))),
                     Err(_) => (true, None),
                 },
@@ -655,7 +655,7 @@ fn random_damage_never_panics_the_library() {
         let k = r.random_range(0..frames.len());
         let f = mutate(&mut r, &frames[k], 0..0);
         frames_tried += 1;
-        if catch_unwind(|| cyclarc::pack::decode_block(&f).is_ok()).is_err() {
+        if catch_unwind(|| cyclarc::codec::frame::decode_block(&f).is_ok()).is_err() {
             escaped.push(format!("frame mutation #{frames_tried} escaped as a panic"));
         }
         // 3. Damaged block bytes behind a valid frame (as a crafted archive with recomputed
@@ -665,10 +665,10 @@ fn random_damage_never_panics_the_library() {
             let m = mutate(&mut r, &raws[k], 0..raws[k].len().min(64));
             blocks_tried += 1;
             let res = catch_unwind(AssertUnwindSafe(|| {
-                let frame = cyclarc::pack::compress(&m, 1).expect("compress");
-                match cyclarc::pack::decode_block(&frame) {
+                let frame = cyclarc::codec::frame::compress(&m, 1).expect("compress");
+                match cyclarc::codec::frame::decode_block(&frame) {
                     Ok(b) => {
-                        let _ = cyclarc::decode::rebuild_block(&b, fft);
+                        let _ = cyclarc::codec::rebuild_block(&b, fft);
                         true
                     }
                     Err(_) => false,

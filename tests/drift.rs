@@ -7,11 +7,12 @@ use std::f64::consts::PI;
 
 use common::*;
 use cyclarc::baseline::time_domain_bytes;
-use cyclarc::fit::Basis;
-use cyclarc::job::{encode_run, RunEncoding, RunParams};
+use cyclarc::codec::segment::FundamentalSource;
+use cyclarc::codec::{encode_run, RunEncoding, RunParams};
+use cyclarc::model::Basis;
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::segment::FundamentalSource;
-use cyclarc::signal::{RealFft, ValueType};
+use cyclarc::signal::RealFft;
 use rand_distr::{Distribution, Normal};
 
 const FS: f64 = 10_240.0;
@@ -57,15 +58,15 @@ fn encode(x: &[f64], fundamental: &str) -> (RunEncoding, usize) {
         channel: "shaft",
         value_type: ValueType::F64,
         sample_rate: Some(FS),
-        budget: s.budget,
-        settings: &s,
+        budget: s.codec.budget,
+        params: &s.codec,
         fft: RealFft::shared(),
     };
     let enc = encode_run(&run, &p).unwrap();
     for d in decode_run(&enc, RealFft::shared()) {
         let x = &run.values[d.start..d.start + d.record.len];
         let err = rms_error(x, &d.values);
-        let promised = promised_budget(s.budget, x);
+        let promised = promised_budget(s.codec.budget, x);
         assert!(is_f32_rounded_down(d.plan.budget_rms, promised));
         assert!(
             err <= d.plan.budget_rms,

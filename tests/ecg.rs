@@ -10,21 +10,22 @@ mod common;
 use std::path::Path;
 
 use common::*;
-use cyclarc::assemble::{assemble, ChannelSamples};
 use cyclarc::baseline::time_domain_bytes;
-use cyclarc::fit::fit_samples;
-use cyclarc::job::{encode_run, RunParams};
+use cyclarc::codec::fit::fit_samples;
+use cyclarc::codec::{encode_run, RunParams};
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::read::Source;
-use cyclarc::signal::{fill_non_finite, RealFft, ScalarFft, ValueType};
+use cyclarc::signal::{fill_non_finite, RealFft, ScalarFft};
+use cyclarc::source::Source;
+use cyclarc::source::{assemble, ChannelSamples};
 
 const ECG: &str = "tests/data/ecg-mitbih-208.parquet";
 
 /// The record through cyclarc's reader and assembler: (values, sample rate, value type).
-fn read_ecg() -> (cyclarc::assemble::Run, f64, ValueType) {
+fn read_ecg() -> (cyclarc::model::Run, f64, ValueType) {
     let path = Path::new(ECG);
     let s = settings(EncodeOptions::default());
-    let mut src = Source::open(path, &s).expect("reference file opens");
+    let mut src = Source::open(path, &s.source).expect("reference file opens");
     let mut samples = ChannelSamples::default();
     while let Some(chunks) = src.next_chunks() {
         for c in chunks.expect("reference file reads") {
@@ -102,8 +103,8 @@ fn ecg_meets_every_budget_and_codes_below_the_time_domain_quantizer() {
             channel: "ecg_mlii",
             value_type: vt,
             sample_rate: Some(fs),
-            budget: s.budget,
-            settings: &s,
+            budget: s.codec.budget,
+            params: &s.codec,
             fft: RealFft::shared(),
         };
         let enc = encode_run(&run, &p).unwrap();
@@ -114,7 +115,7 @@ fn ecg_meets_every_budget_and_codes_below_the_time_domain_quantizer() {
         {
             let n = d.record.len;
             let x = &run.values[d.start..d.start + n];
-            let promised = promised_budget(s.budget, x);
+            let promised = promised_budget(s.codec.budget, x);
             let budget = d.plan.budget_rms;
             assert!(is_f32_rounded_down(budget, promised));
             let err = rms_error(x, &d.values);

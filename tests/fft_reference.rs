@@ -11,10 +11,13 @@ mod common;
 
 use common::*;
 use cyclarc::baseline::time_domain_bytes;
-use cyclarc::fit::{synthesize, Basis, FP_MARGIN_REL};
-use cyclarc::job::{encode_run, RunParams};
+use cyclarc::codec::fit::FP_MARGIN_REL;
+use cyclarc::codec::synthesize;
+use cyclarc::codec::{encode_run, RunParams};
+use cyclarc::model::Basis;
+use cyclarc::model::ValueType;
 use cyclarc::options::{Budget, EncodeOptions};
-use cyclarc::signal::{half_len, RealFft, ScalarFft, Transform, ValueType, C64};
+use cyclarc::signal::{half_len, RealFft, ScalarFft, Transform, C64};
 use rand::Rng;
 use rand_distr::StandardNormal;
 
@@ -345,8 +348,8 @@ fn scalar_decoder_meets_every_budget_of_archives_written_with_the_default_planne
             channel: "x",
             value_type: case.value_type,
             sample_rate: Some(case.fs),
-            budget: s.budget,
-            settings: &s,
+            budget: s.codec.budget,
+            params: &s.codec,
             fft: RealFft::shared(),
         };
         let enc = encode_run(&run, &p).unwrap();
@@ -358,7 +361,7 @@ fn scalar_decoder_meets_every_budget_of_archives_written_with_the_default_planne
             let x = &run.values[d.start..d.start + n];
             let budget = d.plan.budget_rms;
             // The budget is what the README promises, stored as f32 rounded down.
-            let promised = promised_budget(s.budget, x);
+            let promised = promised_budget(s.codec.budget, x);
             assert!(
                 is_f32_rounded_down(budget, promised),
                 "{}: budget {budget} vs promised {promised}",
@@ -444,16 +447,16 @@ fn noisy_vibration_above_its_noise_floor_codes_below_the_time_domain_quantizer()
         channel: "accel",
         value_type: ValueType::F32,
         sample_rate: Some(fs),
-        budget: s.budget,
-        settings: &s,
+        budget: s.codec.budget,
+        params: &s.codec,
         fft: RealFft::shared(),
     };
-    let run = cyclarc::assemble::Run {
+    let run = cyclarc::model::Run {
         values: run.values.iter().map(|&v| v as f32 as f64).collect(),
         ..run
     };
     let enc = encode_run(&run, &p).unwrap();
-    assert_eq!(s.budget, Budget::Absolute(1.5 * sigma));
+    assert_eq!(s.codec.budget, Budget::Absolute(1.5 * sigma));
     for d in decode_run(&enc, RealFft::shared()) {
         let x = &run.values[d.start..d.start + d.record.len];
         assert!(is_f32_rounded_down(d.plan.budget_rms, 1.5 * sigma));

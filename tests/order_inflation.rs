@@ -19,10 +19,11 @@ mod common;
 
 use common::*;
 use cyclarc::baseline::time_domain_bytes;
-use cyclarc::fit::Basis;
-use cyclarc::job::{encode_run, RunParams};
+use cyclarc::codec::{encode_run, RunParams};
+use cyclarc::model::Basis;
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::signal::{fill_non_finite, weight, RealFft, Transform, ValueType};
+use cyclarc::signal::{fill_non_finite, weight, RealFft, Transform};
 
 /// Least L with T(L) = Σ_{k≥L} w_k|c_k|² ≤ energy.
 fn truncation_order(c: &[cyclarc::signal::C64], n: usize, energy: f64) -> usize {
@@ -56,8 +57,8 @@ fn quantized_order_is_never_below_the_truncation_order_on_the_clean_current() {
             channel: "i",
             value_type: ValueType::F64,
             sample_rate: Some(fs),
-            budget: s.budget,
-            settings: &s,
+            budget: s.codec.budget,
+            params: &s.codec,
             fft: RealFft::shared(),
         };
         let enc = encode_run(&run, &p).unwrap();

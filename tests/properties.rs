@@ -17,10 +17,12 @@
 mod common;
 
 use common::*;
-use cyclarc::fit::{error_by_order, Basis};
-use cyclarc::job::{encode_run, RunEncoding, RunParams};
+use cyclarc::codec::fit::error_by_order;
+use cyclarc::codec::{encode_run, RunEncoding, RunParams};
+use cyclarc::model::Basis;
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::signal::{fill_non_finite, predict, weight, RealFft, Transform, ValueType};
+use cyclarc::signal::{fill_non_finite, predict, weight, RealFft, Transform};
 use proptest::prelude::*;
 use proptest::test_runner::{Config, RngAlgorithm, RngSeed};
 use rand::Rng;
@@ -217,12 +219,12 @@ fn options(c: &Case, x: &[f64]) -> EncodeOptions {
     o
 }
 
-fn encode(c: &Case, x: &[f64]) -> (cyclarc::assemble::Run, cyclarc::options::Settings) {
+fn encode(c: &Case, x: &[f64]) -> (cyclarc::model::Run, cyclarc::options::Settings) {
     let mut run = run_of(x, c.fs);
     // An integer column has nulls, not NaN.
     if c.value_type.is_integer() {
         for sp in &mut run.specials {
-            sp.1 = cyclarc::pack::SpecialKind::Null;
+            sp.1 = cyclarc::model::SpecialKind::Null;
         }
     }
     (run, settings(options(c, x)))
@@ -233,15 +235,15 @@ fn params<'a>(c: &Case, s: &'a cyclarc::options::Settings) -> RunParams<'a> {
         channel: "p",
         value_type: c.value_type,
         sample_rate: Some(c.fs),
-        budget: s.budget,
-        settings: s,
+        budget: s.codec.budget,
+        params: &s.codec,
         fft: RealFft::shared(),
     }
 }
 
 /// Check budgets and least orders of one encoding; returns (segments, Fourier, predicted).
 fn check(
-    run: &cyclarc::assemble::Run,
+    run: &cyclarc::model::Run,
     s: &cyclarc::options::Settings,
     enc: &RunEncoding,
 ) -> Result<(usize, usize, usize), TestCaseError> {
@@ -253,7 +255,7 @@ fn check(
         let n = d.record.len;
         let x = &run.values[d.start..d.start + n];
         // Budget: as promised, and met by the decoded output.
-        let promised = promised_budget(s.budget, x);
+        let promised = promised_budget(s.codec.budget, x);
         let budget = d.plan.budget_rms;
         prop_assert!(
             is_f32_rounded_down(budget, promised),

@@ -3,9 +3,10 @@ mod common;
 
 use common::*;
 use cyclarc::baseline::time_domain_bytes;
-use cyclarc::job::{encode_run, RunParams};
+use cyclarc::codec::{encode_run, RunParams};
+use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::signal::{RealFft, ValueType};
+use cyclarc::signal::RealFft;
 
 #[test]
 fn clean_three_phase_current_codes_8x_smaller_than_time_domain_quantizer() {
@@ -22,8 +23,8 @@ fn clean_three_phase_current_codes_8x_smaller_than_time_domain_quantizer() {
             channel: "i",
             value_type: ValueType::F64,
             sample_rate: Some(fs),
-            budget: s.budget,
-            settings: &s,
+            budget: s.codec.budget,
+            params: &s.codec,
             fft: RealFft::shared(),
         };
         let enc = encode_run(&run, &p).unwrap();

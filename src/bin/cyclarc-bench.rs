@@ -47,11 +47,13 @@ use rand_distr::{Distribution, Normal};
 use rayon::prelude::*;
 use serde::Serialize;
 
-use cyclarc::assemble::Run;
 use cyclarc::baseline::{lossless_parquet_bytes, rate_distortion_bytes, time_domain_bytes};
-use cyclarc::job::{decode_file, encode_file, JobControl, RunParams};
+use cyclarc::codec::RunParams;
+use cyclarc::fsio::digest_path;
+use cyclarc::model::{Run, ValueType};
 use cyclarc::options::{EncodeOptions, Settings};
-use cyclarc::signal::{RealFft, ValueType};
+use cyclarc::signal::RealFft;
+use cyclarc::{decode_file, encode_file, Archive, DigestPolicy, JobControl};
 
 /// 2026-01-01T00:00:00Z in ns since the epoch: the first sample of every input.
 const START_NS: i64 = 1_767_225_600_000_000_000;
@@ -565,7 +567,7 @@ fn machine() -> Machine {
 
 /// Sum of the payload column of an archive.
 fn payload_bytes(archive: &Path) -> Result<usize> {
-    let a = cyclarc::archive::read_archive(archive)?;
+    let a = Archive::open(archive, DigestPolicy::Skip)?;
     Ok(a.rows
         .iter()
         .filter_map(|r| r.payload.as_ref())
@@ -712,7 +714,7 @@ impl Bench {
         for p in [&dec, &written] {
             let _ = std::fs::remove_file(p);
         }
-        let _ = std::fs::remove_file(cyclarc::archive::digest_path(&arc));
+        let _ = std::fs::remove_file(digest_path(&arc));
         let _ = std::fs::remove_file(&arc);
         Ok(SpeedRow {
             dataset: ds.name(),
@@ -772,7 +774,7 @@ impl Bench {
                 encode_s,
             });
         }
-        let _ = std::fs::remove_file(cyclarc::archive::digest_path(&arc));
+        let _ = std::fs::remove_file(digest_path(&arc));
         let _ = std::fs::remove_file(&arc);
         // The baselines, channel by channel, in parallel over (budget, channel).
         let runs: Vec<Run> = (0..input.data.len()).map(|c| input.run(c)).collect();
@@ -793,8 +795,8 @@ impl Bench {
                     channel: ds.channels()[c],
                     value_type: ValueType::F32,
                     sample_rate: Some(fs),
-                    budget: s.budget,
-                    settings: &s,
+                    budget: s.codec.budget,
+                    params: &s.codec,
                     fft,
                 };
                 Ok((
@@ -1404,7 +1406,7 @@ fn run(_cli: &Cli, plan: &Plan, bench: &Bench) -> Result<Report> {
                     archives_identical: identical,
                 });
                 for p in [&a1, &an] {
-                    let _ = std::fs::remove_file(cyclarc::archive::digest_path(p));
+                    let _ = std::fs::remove_file(digest_path(p));
                     let _ = std::fs::remove_file(p);
                 }
             }
@@ -1447,7 +1449,7 @@ fn run(_cli: &Cli, plan: &Plan, bench: &Bench) -> Result<Report> {
             max_rss_bytes: rss,
             wall_s: wall,
         });
-        let _ = std::fs::remove_file(cyclarc::archive::digest_path(&out));
+        let _ = std::fs::remove_file(digest_path(&out));
         let _ = std::fs::remove_file(&out);
         let _ = std::fs::remove_file(&src);
     }

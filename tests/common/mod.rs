@@ -1,9 +1,9 @@
 //! Helpers shared by the integration tests: run construction and the library's defaults.
 #![allow(dead_code)]
 
-use cyclarc::assemble::Run;
+use cyclarc::model::Run;
+use cyclarc::model::SpecialKind;
 use cyclarc::options::{EncodeOptions, Settings};
-use cyclarc::pack::SpecialKind;
 use rand::SeedableRng;
 use rand_chacha::ChaCha8Rng;
 
@@ -77,10 +77,10 @@ pub fn three_phase(phase: usize, f0: f64, fs: f64, n: usize, seed: u64) -> Vec<f
 
 // ---- Helpers for the reference tests (decoding, budgets, error bounds, test signals) ----
 
-use cyclarc::fit::FitPlan;
-use cyclarc::job::RunEncoding;
+use cyclarc::codec::fit::FitPlan;
+use cyclarc::codec::frame::{decode_block, SegmentRecord};
+use cyclarc::codec::RunEncoding;
 use cyclarc::options::Budget;
-use cyclarc::pack::{decode_block, SegmentRecord};
 use cyclarc::signal::Transform;
 
 /// Unit roundoff of f64 (half the machine epsilon).
@@ -161,7 +161,7 @@ pub struct Decoded {
     /// Reconstructed coefficients (Fourier only).
     pub coeffs: Vec<cyclarc::signal::C64>,
     /// The segment's archive row as the encoder made it.
-    pub row: cyclarc::archive::SegmentRow,
+    pub row: cyclarc::codec::SegmentSummary,
 }
 
 /// Unpack every block of `enc` from its frame bytes and rebuild it with `fft`; segments in
@@ -171,14 +171,20 @@ pub fn decode_run(enc: &RunEncoding, fft: &dyn Transform) -> Vec<Decoded> {
     let mut planned = enc.plan.segments.iter();
     for b in &enc.blocks {
         let block = decode_block(&b.frame).expect("frame decodes");
-        let segs = cyclarc::decode::rebuild_block(&block, fft).expect("block rebuilds");
+        let segs = cyclarc::codec::rebuild_block(&block, fft).expect("block rebuilds");
         assert_eq!(segs.len(), b.fits.len());
-        assert_eq!(segs.len(), b.rows.len());
+        assert_eq!(segs.len(), b.segments.len());
         let mut prev = None;
-        for (((rec, seg), plan), row) in block.segments.iter().zip(segs).zip(&b.fits).zip(&b.rows) {
+        for (((rec, seg), plan), row) in block
+            .segments
+            .iter()
+            .zip(segs)
+            .zip(&b.fits)
+            .zip(&b.segments)
+        {
             let p = planned.next().expect("as many segments as planned");
             assert_eq!(p.len, rec.len);
-            let here = (rec.basis == cyclarc::fit::Basis::Fourier)
+            let here = (rec.basis == cyclarc::model::Basis::Fourier)
                 .then(|| (seg.coeffs.clone(), rec.len, rec.ideal_len as f64));
             out.push(Decoded {
                 start: p.start,

@@ -6,7 +6,6 @@
 //! Does not: sort, split into runs or judge the data (that is `assemble`).
 
 use std::collections::HashMap;
-use std::fs::File;
 use std::path::{Path, PathBuf};
 
 use arrow::array::{Array, ArrayRef, AsArray};
@@ -15,152 +14,16 @@ use arrow::datatypes::{
     TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
     TimestampSecondType,
 };
-use parquet::arrow::arrow_reader::{ParquetRecordBatchReader, ParquetRecordBatchReaderBuilder};
+use parquet::arrow::arrow_reader::ParquetRecordBatchReader;
 use parquet::arrow::ProjectionMask;
 use parquet::file::metadata::KeyValue;
-use serde::{Deserialize, Serialize};
 
 use crate::error::{Error, Result};
-use crate::options::{Layout, Settings};
-use crate::pack::SpecialKind;
-use crate::signal::ValueType;
-
-/// Rows per record batch when scanning (the parquet crate's default of 1024 is slow).
-pub const READ_BATCH_ROWS: usize = 65_536;
-
-/// How the source stores time.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(tag = "kind", rename_all = "lowercase")]
-pub enum TimeType {
-    /// Arrow Timestamp with a unit (`s`, `ms`, `us`, `ns`) and optional zone.
-    Timestamp {
-        /// Unit.
-        unit: String,
-        /// Time zone, if any.
-        tz: Option<String>,
-    },
-    /// Int64 epoch nanoseconds.
-    Int64Nanos,
-}
-
-impl TimeType {
-    /// Nanoseconds per unit.
-    pub fn nanos_per_unit(&self) -> i64 {
-        match self {
-            TimeType::Timestamp { unit, .. } => match unit.as_str() {
-                "s" => 1_000_000_000,
-                "ms" => 1_000_000,
-                "us" => 1_000,
-                _ => 1,
-            },
-            TimeType::Int64Nanos => 1,
-        }
-    }
-
-    /// The Arrow type.
-    pub fn data_type(&self) -> DataType {
-        match self {
-            TimeType::Timestamp { unit, tz } => DataType::Timestamp(
-                match unit.as_str() {
-                    "s" => TimeUnit::Second,
-                    "ms" => TimeUnit::Millisecond,
-                    "us" => TimeUnit::Microsecond,
-                    _ => TimeUnit::Nanosecond,
-                },
-                tz.as_deref().map(Into::into),
-            ),
-            TimeType::Int64Nanos => DataType::Int64,
-        }
-    }
-}
-
-/// How the source stores channel names (long layout).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-pub enum NameType {
-    /// Utf8.
-    Utf8,
-    /// LargeUtf8.
-    LargeUtf8,
-    /// Dictionary-encoded strings.
-    Dictionary {
-        /// Key type.
-        key: DictKey,
-        /// Whether the values are LargeUtf8 (else Utf8).
-        large: bool,
-    },
-}
-
-/// Key type of a dictionary-encoded channel column.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "lowercase")]
-#[allow(missing_docs)]
-pub enum DictKey {
-    Int8,
-    Int16,
-    Int32,
-    Int64,
-    UInt8,
-    UInt16,
-    UInt32,
-    UInt64,
-}
-
-impl NameType {
-    /// The Arrow type.
-    pub fn data_type(self) -> DataType {
-        match self {
-            NameType::Utf8 => DataType::Utf8,
-            NameType::LargeUtf8 => DataType::LargeUtf8,
-            NameType::Dictionary { key, large } => DataType::Dictionary(
-                Box::new(match key {
-                    DictKey::Int8 => DataType::Int8,
-                    DictKey::Int16 => DataType::Int16,
-                    DictKey::Int32 => DataType::Int32,
-                    DictKey::Int64 => DataType::Int64,
-                    DictKey::UInt8 => DataType::UInt8,
-                    DictKey::UInt16 => DataType::UInt16,
-                    DictKey::UInt32 => DataType::UInt32,
-                    DictKey::UInt64 => DataType::UInt64,
-                }),
-                Box::new(if large {
-                    DataType::LargeUtf8
-                } else {
-                    DataType::Utf8
-                }),
-            ),
-        }
-    }
-}
-
-/// One channel of the source.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
-pub struct ChannelInfo {
-    /// Name (column name in the wide layout).
-    pub name: String,
-    /// Value type.
-    pub value_type: ValueType,
-}
-
-/// What the decoder needs to write the source's layout back.
-#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
-pub struct SourceSchema {
-    /// Layout.
-    pub layout: Layout,
-    /// Time column name.
-    pub time_column: String,
-    /// Time type.
-    pub time_type: TimeType,
-    /// Channel column (long).
-    pub channel_column: Option<String>,
-    /// Channel column type (long).
-    pub name_type: Option<NameType>,
-    /// Value column (long).
-    pub value_column: Option<String>,
-    /// Channels in source order (wide: column order; long: order of first appearance while
-    /// reading, name order in an archive's metadata).
-    pub channels: Vec<ChannelInfo>,
-}
+use crate::fsio::{contain, open_parquet, READ_BATCH_ROWS};
+use crate::model::{
+    ChannelInfo, DictKey, Layout, NameType, SourceSchema, SpecialKind, TimeType, ValueType,
+};
+use crate::source::Mapping;
 
 /// Samples of one channel from one batch, in source row order.
 #[derive(Debug, Default, Clone)]
@@ -275,61 +138,9 @@ fn name_type_of(dt: &DataType) -> Option<NameType> {
     }
 }
 
-thread_local! {
-    /// Depth of [`contain`] calls on this thread.
-    static CONTAINED: std::cell::Cell<u32> = const { std::cell::Cell::new(0) };
-}
-
-/// Run `f`, turning a panic inside it into `Err`: the parquet reader panics on some damaged
-/// files instead of returning an error. The hook of [`quiet_contained_panics`] prints nothing
-/// for such a panic (the caller reports it as an error with the file's name).
-pub fn contain<R>(f: impl FnOnce() -> R) -> std::thread::Result<R> {
-    CONTAINED.with(|c| c.set(c.get() + 1));
-    let r = std::panic::catch_unwind(std::panic::AssertUnwindSafe(f));
-    CONTAINED.with(|c| c.set(c.get().saturating_sub(1)));
-    r
-}
-
-/// Install a panic hook that stays silent for panics inside [`contain`] and passes every
-/// other panic to the hook installed before (the command line calls this once).
-pub fn quiet_contained_panics() {
-    let previous = std::panic::take_hook();
-    std::panic::set_hook(Box::new(move |info| {
-        if CONTAINED.with(|c| c.get()) == 0 {
-            previous(info)
-        }
-    }));
-}
-
-/// Open a Parquet file, turning the reader's panics on damaged input into errors.
-pub fn open_parquet(path: &Path) -> Result<ParquetRecordBatchReaderBuilder<File>> {
-    let file = File::open(path).map_err(|e| Error::Open {
-        file: path.to_path_buf(),
-        source: e,
-    })?;
-    if file.metadata().map(|m| m.is_dir()).unwrap_or(false) {
-        return Err(Error::Open {
-            file: path.to_path_buf(),
-            source: std::io::Error::other("is a directory"),
-        });
-    }
-    let r = contain(|| ParquetRecordBatchReaderBuilder::try_new(file));
-    match r {
-        Ok(Ok(b)) => Ok(b),
-        Ok(Err(e)) => Err(Error::NotParquet {
-            file: path.to_path_buf(),
-            reason: e.to_string(),
-        }),
-        Err(_) => Err(Error::NotParquet {
-            file: path.to_path_buf(),
-            reason: "the Parquet reader failed on damaged metadata".into(),
-        }),
-    }
-}
-
 impl Source {
-    /// Open a source and map its columns according to the settings.
-    pub fn open(path: &Path, settings: &Settings) -> Result<Source> {
+    /// Open a source and map its columns according to the mapping.
+    pub fn open(path: &Path, mapping: &Mapping) -> Result<Source> {
         let builder = open_parquet(path)?;
         let file = path.to_path_buf();
         let arrow_schema = builder.schema().clone();
@@ -355,16 +166,16 @@ impl Source {
                 _ => Ok(()),
             }
         };
-        unique(&settings.time_column)?;
-        let time_idx = find(&settings.time_column).ok_or_else(|| Error::MissingColumn {
+        unique(&mapping.time_column)?;
+        let time_idx = find(&mapping.time_column).ok_or_else(|| Error::MissingColumn {
             file: file.clone(),
-            column: settings.time_column.clone(),
+            column: mapping.time_column.clone(),
             available: available.clone(),
         })?;
         let read_type =
             time_type_of(fields[time_idx].data_type()).ok_or_else(|| Error::WrongType {
                 file: file.clone(),
-                column: settings.time_column.clone(),
+                column: mapping.time_column.clone(),
                 found: fields[time_idx].data_type().to_string(),
                 expected: "Timestamp (any unit, with or without zone) or Int64 epoch ns".into(),
             })?;
@@ -376,19 +187,19 @@ impl Source {
             &read_type,
             declared_time_type(
                 builder.metadata().file_metadata().key_value_metadata(),
-                &settings.time_column,
+                &mapping.time_column,
             ),
         ) {
             (TimeType::Timestamp { .. }, Some(d @ TimeType::Timestamp { .. })) => d,
             _ => read_type,
         };
-        let channel_col = find(&settings.channel_column);
-        let value_col = find(&settings.value_column);
+        let channel_col = find(&mapping.channel_column);
+        let value_col = find(&mapping.value_column);
         let numeric: Vec<usize> = (0..fields.len())
             .filter(|&i| i != time_idx && Some(i) != channel_col)
             .filter(|&i| value_type_of(fields[i].data_type()).is_some())
             .collect();
-        let layout = match settings.layout {
+        let layout = match mapping.layout {
             Some(l) => l,
             None => match (channel_col, value_col) {
                 (Some(_), Some(_)) => Layout::Long,
@@ -399,7 +210,7 @@ impl Source {
                         reason: format!(
                             "has a `{}` column but no `{}` column; name the value column \
                              (--value-column) or pass --layout wide",
-                            settings.channel_column, settings.value_column
+                            mapping.channel_column, mapping.value_column
                         ),
                     })
                 }
@@ -416,7 +227,7 @@ impl Source {
         };
         let mut source_schema = SourceSchema {
             layout,
-            time_column: settings.time_column.clone(),
+            time_column: mapping.time_column.clone(),
             time_type,
             channel_column: None,
             name_type: None,
@@ -430,31 +241,31 @@ impl Source {
             Layout::Long => {
                 let ci = channel_col.ok_or_else(|| Error::MissingColumn {
                     file: file.clone(),
-                    column: settings.channel_column.clone(),
+                    column: mapping.channel_column.clone(),
                     available: available.clone(),
                 })?;
                 let vi = value_col.ok_or_else(|| Error::MissingColumn {
                     file: file.clone(),
-                    column: settings.value_column.clone(),
+                    column: mapping.value_column.clone(),
                     available: available.clone(),
                 })?;
-                unique(&settings.channel_column)?;
-                unique(&settings.value_column)?;
+                unique(&mapping.channel_column)?;
+                unique(&mapping.value_column)?;
                 let nt = name_type_of(fields[ci].data_type()).ok_or_else(|| Error::WrongType {
                     file: file.clone(),
-                    column: settings.channel_column.clone(),
+                    column: mapping.channel_column.clone(),
                     found: fields[ci].data_type().to_string(),
                     expected: "Utf8, LargeUtf8 or Dictionary(Utf8)".into(),
                 })?;
                 let vt = value_type_of(fields[vi].data_type()).ok_or_else(|| Error::WrongType {
                     file: file.clone(),
-                    column: settings.value_column.clone(),
+                    column: mapping.value_column.clone(),
                     found: fields[vi].data_type().to_string(),
                     expected: "Float64, Float32, Int16 or Int32".into(),
                 })?;
-                source_schema.channel_column = Some(settings.channel_column.clone());
+                source_schema.channel_column = Some(mapping.channel_column.clone());
                 source_schema.name_type = Some(nt);
-                source_schema.value_column = Some(settings.value_column.clone());
+                source_schema.value_column = Some(mapping.value_column.clone());
                 projection.push(ci);
                 projection.push(vi);
                 value_idx.push((vi, 0));
@@ -462,7 +273,7 @@ impl Source {
                 Some(ci)
             }
             Layout::Wide => {
-                let mut wanted: Vec<usize> = match &settings.channels {
+                let mut wanted: Vec<usize> = match &mapping.channels {
                     Some(list) => list
                         .iter()
                         .map(|c| {
@@ -548,7 +359,7 @@ impl Source {
             value_idx,
             names: HashMap::new(),
             wanted: if layout == Layout::Long {
-                settings.channels.clone()
+                mapping.channels.clone()
             } else {
                 None
             },

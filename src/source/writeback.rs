@@ -1,9 +1,9 @@
-//! Write: decoded channels back to Parquet in the source's layout — the same column names,
+//! Write back: decoded channels to Parquet in the source's layout — the same column names,
 //! time type (unit and zone, or Int64 ns) and value types; rows sorted by (channel, time) in
 //! the long layout and by time in the wide one. Null, NaN (with its bits) and ±Inf values are
 //! written exactly.
 //!
-//! Does not: decode (that is `decode`).
+//! Does not: decode (that is the codec and `archive`).
 
 use std::path::Path;
 use std::sync::Arc;
@@ -18,13 +18,11 @@ use parquet::arrow::ArrowWriter;
 use parquet::basic::{Compression, ZstdLevel};
 use parquet::file::properties::WriterProperties;
 
-use crate::archive::{write_atomic, ArchiveMeta};
-use crate::decode::ChannelSeries;
 use crate::error::{Error, Result};
-use crate::options::Layout;
-use crate::pack::SpecialKind;
-use crate::read::{NameType, TimeType, READ_BATCH_ROWS};
-use crate::signal::ValueType;
+use crate::fsio::{write_atomic, READ_BATCH_ROWS};
+use crate::model::{
+    ChannelInfo, ChannelSeries, Layout, NameType, SourceSchema, SpecialKind, TimeType, ValueType,
+};
 
 /// One output cell.
 #[derive(Clone, Copy)]
@@ -110,18 +108,19 @@ fn cells_of(s: &ChannelSeries, range: std::ops::Range<usize>) -> Vec<Cell> {
         .collect()
 }
 
-/// Write decoded channels to `out` (atomically). Returns the rows written.
-/// `channels` are the channels asked for (empty: all); in the wide layout each gets its column
-/// even when the time range holds none of its samples.
+/// Write decoded channels to `out` (atomically) in the layout `schema` describes, each
+/// channel in its type from `types`. Returns the rows written. `channels` are the channels
+/// asked for (empty: all); in the wide layout each gets its column even when the time range
+/// holds none of its samples.
 pub fn write_decoded(
     out: &Path,
-    meta: &ArchiveMeta,
+    schema: &SourceSchema,
+    types: &[ChannelInfo],
     series: &[ChannelSeries],
     channels: &[String],
 ) -> Result<u64> {
-    let schema = &meta.schema;
     let vt_of = |name: &str| {
-        meta.channels
+        types
             .iter()
             .find(|c| c.name == name)
             .map_or(ValueType::F64, |c| c.value_type)
@@ -144,10 +143,7 @@ pub fn write_decoded(
             Layout::Long => {
                 let name_type = schema.name_type.unwrap_or(NameType::Utf8);
                 let name_dt = name_type.data_type();
-                let vt = meta
-                    .channels
-                    .first()
-                    .map_or(ValueType::F64, |c| c.value_type);
+                let vt = types.first().map_or(ValueType::F64, |c| c.value_type);
                 let arrow_schema = Arc::new(Schema::new(vec![
                     time_field.clone(),
                     Field::new(

@@ -1,11 +1,11 @@
 //! Fit: per segment, the orthonormal FFT, the exact error of every order, the quantizer step
 //! and least order, and the choice of basis (Fourier coefficients, time-domain samples, or
 //! lossless). The result is a [`FitPlan`] (plain data, comparable in tests) plus the integer
-//! codes that `pack` turns into bytes.
+//! codes that `frame` turns into bytes.
 //!
 //! The error recorded for a segment is the error of what the decoder outputs: after choosing
 //! step and order from the Parseval energies, the encoder synthesizes the segment exactly as
-//! [`crate::decode`] does, rounds to the output type, and measures. Because rustfft picks
+//! [`crate::codec::decode`] does, rounds to the output type, and measures. Because rustfft picks
 //! AVX, SSE or scalar kernels at run time, another machine may reconstruct values that differ
 //! in the last bits. The encoder therefore widens the measured error by a margin before
 //! comparing with the budget: each reconstructed value may move by
@@ -14,14 +14,15 @@
 //! types every sample whose rounding could flip within ±τ is charged its worse outcome.
 //! A segment is kept only when that widened error is within budget.
 //!
-//! Does not: produce bytes (that is `pack`), or know about files and channels.
+//! Does not: produce bytes (that is `frame`), or know about files and channels.
 
-use rustfft::num_complex::Complex;
 use serde::Serialize;
 
+use crate::codec::decode::{synthesize, Prev};
+use crate::codec::quant::{cost_bits, delta_codes, dequantize_bin, quantize_bin};
+use crate::model::{Basis, ValueType};
 use crate::signal::{
-    fill_non_finite, half_len, is_real_bin, predict, square_scale, weight, Transform, ValueType,
-    C64,
+    fill_non_finite, half_len, is_real_bin, predict, square_scale, weight, Transform, C64,
 };
 
 /// Relative floating-point margin on reconstructed values (see the module docs).
@@ -35,58 +36,6 @@ const MAX_TIGHTEN: usize = 8;
 
 /// Values beyond this magnitude are stored losslessly (their squares would overflow).
 pub const MAX_LOSSY_MAGNITUDE: f64 = 1e150;
-
-/// The representation of a segment in the archive.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, Serialize)]
-#[serde(rename_all = "lowercase")]
-pub enum Basis {
-    /// Quantized Fourier coefficients of bins 0 … order−1.
-    Fourier,
-    /// Samples quantized in the time domain with a uniform step.
-    Samples,
-    /// Values stored bit-exact.
-    Lossless,
-}
-
-impl Basis {
-    /// The name stored in the archive's `basis` column.
-    pub fn name(self) -> &'static str {
-        match self {
-            Basis::Fourier => "fourier",
-            Basis::Samples => "samples",
-            Basis::Lossless => "lossless",
-        }
-    }
-
-    /// Parse an archive `basis` value.
-    pub fn from_name(s: &str) -> Option<Basis> {
-        match s {
-            "fourier" => Some(Basis::Fourier),
-            "samples" => Some(Basis::Samples),
-            "lossless" => Some(Basis::Lossless),
-            _ => None,
-        }
-    }
-
-    /// Tag byte used inside payloads.
-    pub fn tag(self) -> u8 {
-        match self {
-            Basis::Fourier => 0,
-            Basis::Samples => 1,
-            Basis::Lossless => 2,
-        }
-    }
-
-    /// Inverse of [`Basis::tag`].
-    pub fn from_tag(t: u8) -> Option<Basis> {
-        match t {
-            0 => Some(Basis::Fourier),
-            1 => Some(Basis::Samples),
-            2 => Some(Basis::Lossless),
-            _ => None,
-        }
-    }
-}
 
 /// The decision made for one segment: plain data.
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -131,17 +80,6 @@ pub struct Fitted {
     /// Coefficients of the decoded segment for derived columns (Fourier: as stored; other
     /// bases: the source's spectrum).
     pub spectrum: Vec<C64>,
-}
-
-/// What a segment's prediction is based on: the previous Fourier segment of the same block.
-#[derive(Debug, Clone)]
-pub struct Prev {
-    /// Reconstructed coefficients of bins 0 … L−1.
-    pub coeffs: Vec<C64>,
-    /// Its length in samples.
-    pub n: usize,
-    /// Its ideal length Λ = K·P (as stored, f32 precision).
-    pub ideal: f64,
 }
 
 /// Refine the ideal length Λ of the previous segment, which the prediction of the next one
@@ -206,31 +144,6 @@ pub struct SegmentInput<'a> {
     pub value_type: ValueType,
     /// Resolved RMS budget in channel units (0 = lossless).
     pub budget_rms: f64,
-}
-
-/// Number of integer codes for order `l` on an `n`-sample segment.
-pub fn code_count(l: usize, n: usize) -> usize {
-    (0..l).map(|k| if is_real_bin(k, n) { 1 } else { 2 }).sum()
-}
-
-/// Quantize residual `c − p` with step Δ; returns (code_re, code_im, error energy of the bin
-/// with weight).
-#[inline]
-fn quantize_bin(c: C64, p: C64, step: f64, k: usize, n: usize) -> (i64, i64, f64) {
-    let r = c - p;
-    let qr = (r.re / step).round();
-    let qi = if is_real_bin(k, n) {
-        0.0
-    } else {
-        (r.im / step).round()
-    };
-    let er = r.re - qr * step;
-    let ei = if is_real_bin(k, n) {
-        r.im
-    } else {
-        r.im - qi * step
-    };
-    (qr as i64, qi as i64, weight(k, n) * (er * er + ei * ei))
 }
 
 /// Exact error energy (summed over the N samples, before output rounding) of every order
@@ -314,54 +227,6 @@ pub fn quantize(
     (codes, rec)
 }
 
-/// Reconstruct one bin from prediction and codes (shared by encoder and decoder).
-#[inline]
-pub fn dequantize_bin(p: C64, qr: i64, qi: i64, step: f64, k: usize, n: usize) -> C64 {
-    if is_real_bin(k, n) {
-        Complex::new(p.re + step * qr as f64, 0.0)
-    } else {
-        Complex::new(p.re + step * qr as f64, p.im + step * qi as f64)
-    }
-}
-
-/// Estimated coded size in bits of a sequence of integer codes: its empirical order-0
-/// entropy, plus a table cost per distinct symbol; magnitudes of 256 and above are escaped.
-pub fn cost_bits(codes: &[i64]) -> f64 {
-    if codes.is_empty() {
-        return 0.0;
-    }
-    let mut hist = [0u32; 512];
-    let mut escaped_bits = 0.0;
-    for &q in codes {
-        let z = zigzag(q);
-        if z < 511 {
-            hist[z as usize] += 1;
-        } else {
-            hist[511] += 1;
-            escaped_bits += 2.0 * (64 - z.leading_zeros()) as f64;
-        }
-    }
-    let n = codes.len() as f64;
-    let mut bits = escaped_bits;
-    for &h in hist.iter().filter(|&&h| h > 0) {
-        let h = h as f64;
-        bits += h * (n / h).log2() + 6.0;
-    }
-    bits
-}
-
-/// ZigZag map of a signed integer.
-#[inline]
-pub fn zigzag(v: i64) -> u64 {
-    ((v << 1) ^ (v >> 63)) as u64
-}
-
-/// Inverse of [`zigzag`].
-#[inline]
-pub fn unzigzag(z: u64) -> i64 {
-    ((z >> 1) as i64) ^ -((z & 1) as i64)
-}
-
 /// Header cost proxy (bits) of a segment in each basis.
 const HEADER_BITS: f64 = 24.0;
 
@@ -424,63 +289,6 @@ fn measure(
     }
     let n = count as f64;
     ((sum / n).sqrt() / s, (worst / n).sqrt() / s)
-}
-
-/// Round a budget to the f32 that is not above it (budgets are stored as f32).
-pub fn budget_to_f32(b: f64) -> f64 {
-    let f = b as f32;
-    if (f as f64) > b {
-        f32_next_down(f) as f64
-    } else {
-        f as f64
-    }
-}
-
-/// Round a recorded error up to the f32 that is not below it.
-pub fn error_to_f32(e: f64) -> f32 {
-    let f = e as f32;
-    if (f as f64) < e {
-        f32_next_up(f)
-    } else {
-        f
-    }
-}
-
-fn f32_next_down(f: f32) -> f32 {
-    if f.is_nan() || f == f32::NEG_INFINITY {
-        return f;
-    }
-    if f == 0.0 {
-        return -f32::from_bits(1);
-    }
-    let b = f.to_bits();
-    f32::from_bits(if f > 0.0 { b - 1 } else { b + 1 })
-}
-
-fn f32_next_up(f: f32) -> f32 {
-    if f.is_nan() || f == f32::INFINITY {
-        return f;
-    }
-    if f == 0.0 {
-        return f32::from_bits(1);
-    }
-    let b = f.to_bits();
-    f32::from_bits(if f > 0.0 { b + 1 } else { b - 1 })
-}
-
-/// Synthesize a Fourier segment as the decoder does: inverse transform of the kept bins, then
-/// rounding to the output type. Returns (unrounded, rounded).
-pub fn synthesize(
-    coeffs: &[C64],
-    n: usize,
-    value_type: ValueType,
-    fft: &dyn Transform,
-) -> (Vec<f64>, Vec<f64>) {
-    let mut full = vec![C64::new(0.0, 0.0); half_len(n)];
-    full[..coeffs.len().min(half_len(n))].copy_from_slice(&coeffs[..coeffs.len().min(half_len(n))]);
-    let y = fft.inverse(&full, n);
-    let out = y.iter().map(|&v| value_type.round(v)).collect();
-    (y, out)
 }
 
 /// Fit one segment. `prev` is the previous Fourier segment of the same block, if any.
@@ -576,29 +384,6 @@ fn fit_lossless(
         coeffs: Vec::new(),
         spectrum,
     }
-}
-
-/// First differences (the first value kept as is).
-pub fn delta_codes(q: &[i64]) -> Vec<i64> {
-    let mut prev = 0i64;
-    q.iter()
-        .map(|&v| {
-            let d = v.wrapping_sub(prev);
-            prev = v;
-            d
-        })
-        .collect()
-}
-
-/// Inverse of [`delta_codes`].
-pub fn undelta_codes(d: &[i64]) -> Vec<i64> {
-    let mut acc = 0i64;
-    d.iter()
-        .map(|&v| {
-            acc = acc.wrapping_add(v);
-            acc
-        })
-        .collect()
 }
 
 /// The error-bounded time-domain quantizer: step √12·ε (uniform quantization error has
@@ -756,27 +541,6 @@ fn fit_fourier(
 mod tests {
     use super::*;
     use crate::signal::RealFft;
-
-    #[test]
-    fn zigzag_round_trips_extremes() {
-        for v in [0i64, 1, -1, 63, -64, i64::MAX, i64::MIN] {
-            assert_eq!(unzigzag(zigzag(v)), v);
-        }
-    }
-
-    #[test]
-    fn delta_round_trips_with_wrapping() {
-        let q = vec![i64::MAX, i64::MIN, 0, 5, -7];
-        assert_eq!(undelta_codes(&delta_codes(&q)), q);
-    }
-
-    #[test]
-    fn budget_rounding_never_loosens_and_error_never_tightens() {
-        for b in [0.1f64, 1.0 / 3.0, 1e-30, 12345.678] {
-            assert!(budget_to_f32(b) <= b);
-            assert!(error_to_f32(b) as f64 >= b);
-        }
-    }
 
     #[test]
     fn zero_budget_is_lossless() {

@@ -1,152 +1,13 @@
-//! Decode: rebuild the samples and timestamps of a block from its unpacked segments —
-//! prediction, dequantization and inverse FFT for Fourier segments, dequantization for
-//! time-domain samples, bit patterns for lossless ones — and put the NaN, ±Inf and null
-//! values back where they were.
-//!
-//! The encoder calls the same functions ([`crate::fit::synthesize`],
-//! [`crate::signal::predict`]), so the error it records is the error of this output.
-//!
-//! Does not: compare with sources (that is `verify`) or read files (that is `archive`).
+//! Decoding an archive's blocks into channels: each block's checksum, its frame and its rows
+//! cross-checked, its segments rebuilt by the codec, and the samples of each channel put
+//! together in time order — all blocks, or a channel and time selection, or what is intact.
 
-use crate::archive::{block_spans, check_blocks, Archive, Hole};
-use crate::fit::{dequantize_bin, synthesize, undelta_codes, Basis, Prev};
-use crate::pack::{Block, SegmentRecord, Special, SpecialKind};
-use crate::signal::{is_real_bin, predict, Transform, ValueType, C64};
-
-/// One rebuilt segment.
-#[derive(Debug, Clone, PartialEq)]
-pub struct DecodedSegment {
-    /// Output values in the channel's type (as f64); non-finite positions hold NaN.
-    pub values: Vec<f64>,
-    /// Null, NaN (with bits) and ±Inf values by index.
-    pub specials: Vec<Special>,
-    /// Reconstructed coefficients (Fourier only), bins 0 … L−1.
-    pub coeffs: Vec<C64>,
-}
-
-impl DecodedSegment {
-    /// Whether sample i is null.
-    pub fn is_null(&self, i: usize) -> bool {
-        self.specials
-            .binary_search_by_key(&(i as u32), |s| s.index)
-            .is_ok_and(|p| self.specials[p].kind == SpecialKind::Null)
-    }
-}
-
-/// Rebuild every segment of a block, in order.
-pub fn rebuild_block(block: &Block, fft: &dyn Transform) -> Result<Vec<DecodedSegment>, String> {
-    let mut prev: Option<Prev> = None;
-    let mut out = Vec::with_capacity(block.segments.len());
-    for (j, seg) in block.segments.iter().enumerate() {
-        let (values, coeffs) = match seg.basis {
-            Basis::Fourier => {
-                let coeffs = fourier_coeffs(seg, prev.as_ref())
-                    .map_err(|e| format!("segment {j} of block: {e}"))?;
-                let (_, values) = synthesize(&coeffs, seg.len, block.value_type, fft);
-                (values, coeffs)
-            }
-            Basis::Samples => {
-                let q = if seg.predicted {
-                    undelta_codes(&seg.codes)
-                } else {
-                    seg.codes.clone()
-                };
-                let s = seg.step as f64;
-                let v = q
-                    .iter()
-                    .map(|&c| block.value_type.round(c as f64 * s))
-                    .collect();
-                (v, Vec::new())
-            }
-            Basis::Lossless => (lossless_values(seg, block.value_type), Vec::new()),
-        };
-        prev = (seg.basis == Basis::Fourier).then(|| Prev {
-            coeffs: coeffs.clone(),
-            n: seg.len,
-            ideal: seg.ideal_len as f64,
-        });
-        let mut values = values;
-        for sp in &seg.specials {
-            if let Some(v) = values.get_mut(sp.index as usize) {
-                *v = special_value(sp.kind, block.value_type);
-            }
-        }
-        out.push(DecodedSegment {
-            values,
-            specials: seg.specials.clone(),
-            coeffs,
-        });
-    }
-    Ok(out)
-}
-
-/// The f64 stand-in for a special value (NaN for null and NaN, exact bits for f64 NaN).
-pub fn special_value(kind: SpecialKind, value_type: ValueType) -> f64 {
-    match kind {
-        SpecialKind::Null => f64::NAN,
-        SpecialKind::Nan(bits) => match value_type {
-            ValueType::F32 => f32::from_bits(bits as u32) as f64,
-            _ => f64::from_bits(bits),
-        },
-        SpecialKind::PosInf => f64::INFINITY,
-        SpecialKind::NegInf => f64::NEG_INFINITY,
-    }
-}
-
-/// Reconstruct the kept Fourier coefficients of a segment from its codes and prediction.
-pub fn fourier_coeffs(seg: &SegmentRecord, prev: Option<&Prev>) -> Result<Vec<C64>, String> {
-    let n = seg.len;
-    let l = seg.order as usize;
-    let pred = match (seg.predicted, prev) {
-        (true, Some(p)) => predict(&p.coeffs, p.n, p.ideal, n, l),
-        (true, None) => return Err("predicted segment without a previous Fourier segment".into()),
-        (false, _) => vec![C64::new(0.0, 0.0); l],
-    };
-    let step = seg.step as f64;
-    let mut codes = seg.codes.iter();
-    let mut out = Vec::with_capacity(l);
-    for (k, &p) in pred.iter().enumerate() {
-        let qr = *codes.next().ok_or("too few codes")?;
-        let qi = if is_real_bin(k, n) {
-            0
-        } else {
-            *codes.next().ok_or("too few codes")?
-        };
-        out.push(dequantize_bin(p, qr, qi, step, k, n));
-    }
-    Ok(out)
-}
-
-fn lossless_values(seg: &SegmentRecord, value_type: ValueType) -> Vec<f64> {
-    let mut out = vec![f64::NAN; seg.len];
-    let mut sp = seg.specials.iter().peekable();
-    let ints = if value_type.is_integer() {
-        if seg.predicted {
-            undelta_codes(&seg.codes)
-        } else {
-            seg.codes.clone()
-        }
-    } else {
-        Vec::new()
-    };
-    let mut next = 0usize;
-    for (i, slot) in out.iter_mut().enumerate() {
-        if sp.peek().is_some_and(|s| s.index as usize == i) {
-            sp.next();
-            continue;
-        }
-        *slot = match value_type {
-            ValueType::F64 => seg.raw.get(next).map_or(f64::NAN, |&b| f64::from_bits(b)),
-            ValueType::F32 => seg
-                .raw
-                .get(next)
-                .map_or(f64::NAN, |&b| f32::from_bits(b as u32) as f64),
-            ValueType::I16 | ValueType::I32 => ints.get(next).map_or(f64::NAN, |&v| v as f64),
-        };
-        next += 1;
-    }
-    out
-}
+use crate::archive::reader::{block_spans, check_blocks, Archive, Hole};
+use crate::archive::schema::block_checksum;
+use crate::codec::decode::{rebuild_block, DecodedSegment};
+use crate::codec::frame::{decode_block, Block};
+use crate::model::{Basis, ChannelSeries};
+use crate::signal::Transform;
 
 /// A block read from an archive, checked and rebuilt.
 #[derive(Debug, Clone)]
@@ -179,12 +40,12 @@ pub fn unpack_block(
             "block {id}: payload on a row that does not start the block"
         ));
     }
-    if crate::archive::block_checksum(frame, all) != crc {
+    if block_checksum(frame, all) != crc {
         return Err(format!(
             "block {id}: checksum mismatch (payload or row values damaged)"
         ));
     }
-    let block = crate::pack::decode_block(frame).map_err(|e| format!("block {id}: {e}"))?;
+    let block = decode_block(frame).map_err(|e| format!("block {id}: {e}"))?;
     let channel = archive
         .meta
         .channels
@@ -209,18 +70,18 @@ pub fn unpack_block(
     let mut offset = 0usize;
     for (r, s) in all.iter().zip(&block.segments) {
         let order_ok = match s.basis {
-            Basis::Fourier => r.order == Some(s.order),
-            _ => r.order.is_none(),
+            Basis::Fourier => r.seg.order == Some(s.order),
+            _ => r.seg.order.is_none(),
         };
         if r.channel != first.channel
-            || r.samples as usize != s.len
-            || r.basis != s.basis
+            || r.seg.samples as usize != s.len
+            || r.seg.basis != s.basis
             || !order_ok
-            || r.start_ns != block.times.time(offset)
+            || r.seg.start_ns != block.times.time(offset)
         {
             return Err(format!(
                 "block {id}: row for segment at {} ns disagrees with the payload",
-                r.start_ns
+                r.seg.start_ns
             ));
         }
         offset += s.len;
@@ -236,21 +97,6 @@ pub fn unpack_block(
         block,
         segments,
     })
-}
-
-/// One channel's decoded samples, in time order.
-#[derive(Debug, Clone, Default)]
-pub struct ChannelSeries {
-    /// Name.
-    pub name: String,
-    /// Times (ns).
-    pub times: Vec<i64>,
-    /// Values (NaN at specials).
-    pub values: Vec<f64>,
-    /// (index, kind) of null and non-finite values.
-    pub specials: Vec<(usize, SpecialKind)>,
-    /// Per archive row of the channel: (row index, sample range in this series).
-    pub segments: Vec<(usize, std::ops::Range<usize>)>,
 }
 
 /// Decode the selected channels (all when `channels` is empty), keeping samples with
@@ -343,8 +189,8 @@ fn decode_selected(
             (Some(f), Some(&n)) => n <= f,
             _ => false,
         };
-        next_start.insert(row.channel.as_str(), row.start_ns);
-        if !before_from && to.is_none_or(|t| row.start_ns < t) {
+        next_start.insert(row.channel.as_str(), row.seg.start_ns);
+        if !before_from && to.is_none_or(|t| row.seg.start_ns < t) {
             selected.push(s);
         }
     }
@@ -366,9 +212,9 @@ fn decode_selected(
                         "left out, {} rows from {} ns: {reason}",
                         archive.rows[span]
                             .iter()
-                            .map(|r| r.samples as u64)
+                            .map(|r| r.seg.samples as u64)
                             .sum::<u64>(),
-                        row.start_ns
+                        row.seg.start_ns
                     ),
                 });
             }

@@ -1,11 +1,11 @@
-//! Pack: a block of consecutive segments of one channel run ↔ one zstd frame.
+//! Frame: a block of consecutive segments of one channel run ↔ one zstd frame.
 //!
 //! Blocks decode independently (prediction restarts at each block), so a reader can fetch a
 //! time range by blocks. Inside a block the bytes are laid out by kind so zstd sees the
 //! redundancy: block header, segment headers, timestamp residuals, non-finite values, integer
 //! codes (LEB128 varints of ZigZag values), then raw lossless bits byte-plane by byte-plane.
 //! Every frame carries zstd's content checksum; the archive adds a CRC-32 of the compressed
-//! frame, so damage is detected before decompression.
+//! frame and of the block's rows, so damage is detected before decompression.
 //!
 //! A block is self-contained: every quantity needed to decode it (lengths, orders, steps,
 //! timestamps) is inside the checksummed frame; the archive's other columns are copies for
@@ -14,10 +14,10 @@
 //! Does not: decide anything about the signal (that is `fit`), or know about Parquet.
 
 use integer_encoding::VarInt;
-use serde::Serialize;
 
-use crate::fit::{code_count, Basis};
-use crate::signal::ValueType;
+use crate::codec::quant::code_count;
+use crate::model::{Basis, ValueType};
+pub use crate::model::{Special, SpecialKind};
 
 /// Version byte of the block layout.
 pub const BLOCK_FORMAT: u8 = 1;
@@ -28,26 +28,51 @@ const MAGIC: &[u8; 2] = b"CB";
 /// Largest decompressed block accepted (a damaged length cannot make the reader allocate more).
 pub const MAX_BLOCK_BYTES: usize = 1 << 30;
 
-/// A non-finite or missing value, stored exactly.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-pub enum SpecialKind {
-    /// Null (missing) value.
-    Null,
-    /// NaN with its bit pattern (f64 bits, or f32 bits widened, in the source's type).
-    Nan(u64),
-    /// +∞.
-    PosInf,
-    /// −∞.
-    NegInf,
-}
-
-/// A special value at an index within its segment.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-pub struct Special {
-    /// Index within the segment.
-    pub index: u32,
-    /// What is there.
-    pub kind: SpecialKind,
+/// What is wrong with a frame that does not decode: small and typed; the archive reader
+/// wraps it once with the file and the block.
+#[derive(Debug, Clone, PartialEq, Eq, thiserror::Error)]
+pub enum FrameError {
+    /// zstd refused the frame (its content checksum included).
+    #[error("zstd: {0}")]
+    Zstd(String),
+    /// The decompressed block is larger than [`MAX_BLOCK_BYTES`].
+    #[error("block larger than the format allows")]
+    TooLarge,
+    /// Not a block of this program.
+    #[error("not a cyclarc block (bad magic)")]
+    BadMagic,
+    /// A block format this build does not read.
+    #[error("block format {0} is not supported")]
+    UnsupportedFormat(u8),
+    /// A section ends before its contents.
+    #[error("{section} section at byte {at}: truncated")]
+    Truncated {
+        /// The section.
+        section: &'static str,
+        /// Byte offset in the section.
+        at: usize,
+    },
+    /// A value in a section is out of range or out of order.
+    #[error("{section} section at byte {at}: {what}")]
+    Malformed {
+        /// The section.
+        section: &'static str,
+        /// Byte offset in the section.
+        at: usize,
+        /// What is wrong.
+        what: &'static str,
+    },
+    /// The sections disagree with each other.
+    #[error("{0}")]
+    Inconsistent(&'static str),
+    /// A segment cannot be rebuilt from what the block holds.
+    #[error("segment {index} of block: {what}")]
+    Segment {
+        /// The segment's index in the block.
+        index: usize,
+        /// What is wrong.
+        what: &'static str,
+    },
 }
 
 /// One segment as stored in a block.
@@ -67,7 +92,7 @@ pub struct SegmentRecord {
     pub step: f32,
     /// Whether codes are prediction residuals.
     pub predicted: bool,
-    /// Integer codes (see [`crate::fit::Fitted::codes`]).
+    /// Integer codes (see [`crate::codec::fit::Fitted::codes`]).
     pub codes: Vec<i64>,
     /// Lossless float bits.
     pub raw: Vec<u64>,
@@ -294,22 +319,23 @@ pub fn checksum(frame: &[u8]) -> u32 {
 }
 
 /// Decompress a frame (checking zstd's content checksum) with a size limit.
-pub fn decompress(frame: &[u8]) -> Result<Vec<u8>, String> {
+pub fn decompress(frame: &[u8]) -> Result<Vec<u8>, FrameError> {
     use std::io::Read;
-    let mut dec = zstd::stream::read::Decoder::new(frame).map_err(|e| e.to_string())?;
+    let mut dec =
+        zstd::stream::read::Decoder::new(frame).map_err(|e| FrameError::Zstd(e.to_string()))?;
     let mut out = Vec::new();
     (&mut dec)
         .take(MAX_BLOCK_BYTES as u64 + 1)
         .read_to_end(&mut out)
-        .map_err(|e| format!("zstd: {e}"))?;
+        .map_err(|e| FrameError::Zstd(e.to_string()))?;
     if out.len() > MAX_BLOCK_BYTES {
-        return Err("block larger than the format allows".into());
+        return Err(FrameError::TooLarge);
     }
     Ok(out)
 }
 
 /// Decode a compressed frame back into a block.
-pub fn decode_block(frame: &[u8]) -> Result<Block, String> {
+pub fn decode_block(frame: &[u8]) -> Result<Block, FrameError> {
     parse_block(&decompress(frame)?)
 }
 
@@ -323,48 +349,55 @@ impl<'a> Cursor<'a> {
     fn new(buf: &'a [u8], what: &'static str) -> Self {
         Cursor { buf, pos: 0, what }
     }
-    fn err(&self, msg: &str) -> String {
-        format!("{} section at byte {}: {msg}", self.what, self.pos)
+    fn err(&self, what: &'static str) -> FrameError {
+        FrameError::Malformed {
+            section: self.what,
+            at: self.pos,
+            what,
+        }
     }
-    fn var<V: VarInt>(&mut self) -> Result<V, String> {
+    fn truncated(&self) -> FrameError {
+        FrameError::Truncated {
+            section: self.what,
+            at: self.pos,
+        }
+    }
+    fn var<V: VarInt>(&mut self) -> Result<V, FrameError> {
         let (v, n) = V::decode_var(&self.buf[self.pos.min(self.buf.len())..])
-            .ok_or_else(|| self.err("truncated varint"))?;
+            .ok_or_else(|| self.truncated())?;
         self.pos += n;
         Ok(v)
     }
-    fn byte(&mut self) -> Result<u8, String> {
-        let b = *self
-            .buf
-            .get(self.pos)
-            .ok_or_else(|| self.err("truncated"))?;
+    fn byte(&mut self) -> Result<u8, FrameError> {
+        let b = *self.buf.get(self.pos).ok_or_else(|| self.truncated())?;
         self.pos += 1;
         Ok(b)
     }
-    fn bytes(&mut self, n: usize) -> Result<&'a [u8], String> {
+    fn bytes(&mut self, n: usize) -> Result<&'a [u8], FrameError> {
         let end = self.pos.checked_add(n).filter(|&e| e <= self.buf.len());
-        let end = end.ok_or_else(|| self.err("truncated"))?;
+        let end = end.ok_or_else(|| self.truncated())?;
         let s = &self.buf[self.pos..end];
         self.pos = end;
         Ok(s)
     }
-    fn f32(&mut self) -> Result<f32, String> {
+    fn f32(&mut self) -> Result<f32, FrameError> {
         let b = self.bytes(4)?;
         Ok(f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
     }
-    fn f64(&mut self) -> Result<f64, String> {
+    fn f64(&mut self) -> Result<f64, FrameError> {
         let b = self.bytes(8)?;
         let mut a = [0u8; 8];
         a.copy_from_slice(b);
         Ok(f64::from_le_bytes(a))
     }
-    fn done(&self) -> Result<(), String> {
+    fn done(&self) -> Result<(), FrameError> {
         if self.pos == self.buf.len() {
             Ok(())
         } else {
             Err(self.err("trailing bytes"))
         }
     }
-    fn count(&mut self, limit: usize) -> Result<usize, String> {
+    fn count(&mut self, limit: usize) -> Result<usize, FrameError> {
         let v: u64 = self.var()?;
         if v as u128 > limit as u128 {
             return Err(self.err("count out of range"));
@@ -374,7 +407,7 @@ impl<'a> Cursor<'a> {
 }
 
 /// Parse a decompressed block. Never panics on malformed input.
-pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
+pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
     let mut outer = Cursor::new(bytes, "block");
     let mut parts = Vec::with_capacity(6);
     for _ in 0..6 {
@@ -384,11 +417,11 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
     outer.done()?;
     let mut h = Cursor::new(parts[0], "header");
     if h.bytes(2)? != MAGIC {
-        return Err("not a cyclarc block (bad magic)".into());
+        return Err(FrameError::BadMagic);
     }
     let fmt = h.byte()?;
     if fmt != BLOCK_FORMAT {
-        return Err(format!("block format {fmt} is not supported"));
+        return Err(FrameError::UnsupportedFormat(fmt));
     }
     let value_type = vt_from_tag(h.byte()?).ok_or_else(|| h.err("unknown value type"))?;
     let nseg = h.count(parts[1].len())?;
@@ -402,7 +435,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
     let width = if value_type == ValueType::F32 { 4 } else { 8 };
     let raw_bytes = parts[5];
     if raw_bytes.len() % width != 0 {
-        return Err("raw section length is not a whole number of values".into());
+        return Err(FrameError::Inconsistent(
+            "raw section length is not a whole number of values",
+        ));
     }
     let raw_total = raw_bytes.len() / width;
     let mut raw_taken = 0usize;
@@ -412,7 +447,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
         let tag = sc.byte()?;
         let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
         let predicted = tag & 0x10 != 0;
-        let len = sc.count(crate::segment::MAX_SEGMENT_SAMPLES)?;
+        let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
         let cycles = sc.count(u32::MAX as usize)? as u32;
         let ideal_len = sc.f32()?;
         let (order, step) = match basis {
@@ -465,7 +500,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
             .collect::<Result<_, _>>()?;
         let nraw = rec.expected_raw(value_type);
         if raw_taken + nraw > raw_total {
-            return Err("raw section too short".into());
+            return Err(FrameError::Inconsistent("raw section too short"));
         }
         rec.raw = (raw_taken..raw_taken + nraw)
             .map(|i| {
@@ -483,7 +518,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
     sp.done()?;
     cc.done()?;
     if raw_taken != raw_total {
-        return Err("raw section too long".into());
+        return Err(FrameError::Inconsistent("raw section too long"));
     }
     let mut tc = Cursor::new(parts[2], "timestamps");
     let residuals = match tc.byte()? {
@@ -516,7 +551,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, String> {
                     prev = prev.wrapping_add(d);
                     Ok(prev)
                 })
-                .collect::<Result<_, String>>()?
+                .collect::<Result<_, FrameError>>()?
         }
         _ => return Err(tc.err("unknown timestamp mode")),
     };

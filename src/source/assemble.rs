@@ -3,13 +3,13 @@
 //! (median step, or the user's value) and split each channel into runs at holes (a step beyond
 //! 1.5× the median).
 //!
-//! Does not: anything Fourier (that is `segment` and `fit`).
+//! Does not: anything Fourier (that is the codec).
 
 use std::path::Path;
 
 use crate::error::{Error, Result};
-use crate::pack::SpecialKind;
-use crate::read::{ChannelChunk, ChannelInfo};
+use crate::model::{ChannelInfo, Run, SpecialKind};
+use crate::source::read::ChannelChunk;
 
 /// A step beyond this multiple of the median step starts a new run.
 pub const HOLE_FACTOR: f64 = 1.5;
@@ -76,17 +76,6 @@ impl ChannelSamples {
     pub fn is_empty(&self) -> bool {
         self.times.is_empty()
     }
-}
-
-/// A run: samples without holes, in time order.
-#[derive(Debug, Clone, PartialEq)]
-pub struct Run {
-    /// Times (ns), strictly increasing.
-    pub times: Vec<i64>,
-    /// Values (NaN at specials).
-    pub values: Vec<f64>,
-    /// (index within the run, kind), increasing.
-    pub specials: Vec<(usize, SpecialKind)>,
 }
 
 /// A channel ready for segmentation.
@@ -352,7 +341,7 @@ pub fn median_step(times: &[i64]) -> Option<i64> {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::signal::ValueType;
+    use crate::model::ValueType;
 
     fn info() -> ChannelInfo {
         ChannelInfo {

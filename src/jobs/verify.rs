@@ -11,14 +11,12 @@ use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
-use crate::archive::{check_digest, read_archive, Archive};
-use crate::assemble::{assemble, ChannelSamples};
-use crate::decode::{decode_channels, ChannelSeries};
+use crate::archive::{decode_channels, Archive, DigestPolicy, DigestState};
 use crate::error::{Error, Result};
-use crate::options::EncodeOptions;
-use crate::pack::SpecialKind;
-use crate::read::Source;
-use crate::signal::{rms_of, Transform, ValueType};
+use crate::fsio::sha256_file;
+use crate::model::{ChannelSeries, SpecialKind, ValueType};
+use crate::signal::{rms_of, Transform};
+use crate::source::{assemble, ChannelSamples, Mapping, Source};
 
 /// Relative slack when comparing a recomputed error with the recorded (f32, rounded-up) one:
 /// summation order may differ between machines.
@@ -97,30 +95,15 @@ fn finding(channel: Option<&str>, start_ns: Option<i64>, what: String) -> Findin
 /// Verify an archive against its source.
 pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result<VerifyReport> {
     let mut findings = Vec::new();
-    let digest = match check_digest(archive_path)? {
-        Some(true) => "ok".to_string(),
-        Some(false) => {
-            findings.push(finding(
-                None,
-                None,
-                "archive digest differs from the recorded one (file changed or damaged)".into(),
-            ));
-            "mismatch".to_string()
-        }
-        None => "missing".to_string(),
-    };
-    let archive = match read_archive(archive_path) {
-        Ok(a) => a,
-        // With the digest already differing, whatever the reader found is damage (a flipped
-        // version byte must not read as "written by a newer cyclarc").
-        Err(e) if digest == "mismatch" => {
-            return Err(Error::Damaged {
-                file: archive_path.to_path_buf(),
-                reason: format!("its digest differs from the recorded one, and: {e}"),
-            })
-        }
-        Err(e) => return Err(e),
-    };
+    let archive = Archive::open(archive_path, DigestPolicy::Report)?;
+    let digest = archive.digest.name().to_string();
+    if archive.digest == DigestState::Mismatch {
+        findings.push(finding(
+            None,
+            None,
+            "archive digest differs from the recorded one (file changed or damaged)".into(),
+        ));
+    }
     let series = match decode_channels(&archive, &[], None, None, fft) {
         Ok(s) => s,
         Err(Error::Damaged { reason, .. }) => {
@@ -135,7 +118,7 @@ pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result
         }
         Err(e) => return Err(e),
     };
-    let (src_meta_sha, _) = crate::archive::sha256_file(source)?;
+    let (src_meta_sha, _) = sha256_file(source)?;
     if src_meta_sha != archive.meta.source.sha256 {
         findings.push(finding(
             None,
@@ -197,11 +180,15 @@ pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result
 /// The source's samples per channel, read with the mapping recorded in the archive.
 fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, ChannelSeries>> {
     let schema = &archive.meta.schema;
-    let opts = EncodeOptions {
+    let defaults = Mapping::default();
+    let mapping = Mapping {
         layout: Some(schema.layout),
-        time_column: Some(schema.time_column.clone()),
-        channel_column: schema.channel_column.clone(),
-        value_column: schema.value_column.clone(),
+        time_column: schema.time_column.clone(),
+        channel_column: schema
+            .channel_column
+            .clone()
+            .unwrap_or(defaults.channel_column),
+        value_column: schema.value_column.clone().unwrap_or(defaults.value_column),
         channels: Some(
             archive
                 .meta
@@ -210,10 +197,9 @@ fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, 
                 .map(|c| c.name.clone())
                 .collect(),
         ),
-        ..Default::default()
+        sample_rate_hz: None,
     };
-    let settings = opts.resolve()?;
-    let mut src = Source::open(source, &settings)?;
+    let mut src = Source::open(source, &mapping)?;
     let mut samples: HashMap<usize, ChannelSamples> = HashMap::new();
     while let Some(chunks) = src.next_chunks() {
         for c in chunks? {
@@ -294,7 +280,7 @@ fn check_channel(
         let max_abs = (0..range.len())
             .filter_map(error_at)
             .fold(0.0f64, |m, e| m.max(e.abs()));
-        let budget = r.budget_rms as f64;
+        let budget = r.seg.budget_rms as f64;
         check.worst_error_rms = check.worst_error_rms.max(err);
         check.max_abs_error = check.max_abs_error.max(max_abs);
         if budget > 0.0 {
@@ -303,16 +289,18 @@ fn check_channel(
         if !(err <= budget) {
             findings.push(finding(
                 Some(name),
-                Some(r.start_ns),
+                Some(r.seg.start_ns),
                 format!("RMS error {err:.6e} exceeds the budget {budget:.6e}"),
             ));
-        } else if !(err <= r.error_rms as f64 * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE) {
+        } else if !(err
+            <= r.seg.error_rms as f64 * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE)
+        {
             findings.push(finding(
                 Some(name),
-                Some(r.start_ns),
+                Some(r.seg.start_ns),
                 format!(
                     "RMS error {err:.6e} is above the recorded {:.6e}",
-                    r.error_rms
+                    r.seg.error_rms
                 ),
             ));
         }

@@ -6,7 +6,7 @@
 //!
 //! Relative paths in a pipeline file are relative to the file's own folder.
 //!
-//! Does not: make codec decisions (it calls `job`).
+//! Does not: make codec decisions (it calls the encode job).
 
 use std::collections::BTreeMap;
 use std::fs::File;
@@ -14,9 +14,10 @@ use std::path::{Path, PathBuf};
 
 use serde::{Deserialize, Serialize};
 
-use crate::archive::{sha256_file, write_atomic};
 use crate::error::{Error, Result};
-use crate::job::{encode_file, EncodeSummary, JobControl};
+use crate::fsio::{check_output, digest_path, sha256_file, sync_dir, write_atomic};
+use crate::jobs::encode::{encode_file, EncodeSummary, JobControl};
+use crate::jobs::verify::verify;
 use crate::options::EncodeOptions;
 use crate::signal::RealFft;
 
@@ -272,14 +273,14 @@ fn clean_stale(dir: &Path) {
 /// Take a published archive and its digest back (the archive first: a crash in between
 /// leaves a digest with no archive, never an unverified archive under its name).
 fn withdraw(archive: &Path) -> Result<()> {
-    for p in [archive.to_path_buf(), crate::archive::digest_path(archive)] {
+    for p in [archive.to_path_buf(), digest_path(archive)] {
         match std::fs::remove_file(&p) {
             Ok(()) => {}
             Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
             Err(e) => return Err(Error::Write { file: p, source: e }),
         }
     }
-    crate::archive::sync_dir(archive).map_err(|e| Error::Write {
+    sync_dir(archive).map_err(|e| Error::Write {
         file: archive.to_path_buf(),
         source: e,
     })
@@ -300,8 +301,8 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
     let lock_path = out_dir.join(LOCK);
     // The lock and the manifest are the run's own files: refuse the whole run when either
     // is something else (a FIFO would block, a device would be replaced).
-    crate::archive::check_output(&lock_path)?;
-    crate::archive::check_output(&out_dir.join(MANIFEST))?;
+    check_output(&lock_path)?;
+    check_output(&out_dir.join(MANIFEST))?;
     let lock = File::create(&lock_path).map_err(|e| Error::Write {
         file: lock_path.clone(),
         source: e,
@@ -353,7 +354,7 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
                 }
                 let summary = encode_file(&src, &archive, &settings, control)?;
                 let verified = if p.verify {
-                    let checked = crate::verify::verify(&archive, &src, RealFft::shared());
+                    let checked = verify(&archive, &src, RealFft::shared());
                     match checked {
                         Ok(r) if r.passed() => Some(true),
                         failed => {

@@ -1,0 +1,201 @@
+//! The archive's file-level metadata: format versions and their rules, the source it was
+//! made from, the resolved settings, the source's schema, and what it holds per channel.
+
+use std::path::Path;
+
+use serde::{Deserialize, Serialize};
+
+use crate::codec::segment::{FundamentalSource, SegmentPlan};
+use crate::error::{Error, Result};
+use crate::fsio::sha256_file;
+use crate::model::{ChannelInfo, Layout, SourceSchema, ValueType};
+
+/// Archive format major version.
+pub const FORMAT_MAJOR: u32 = 1;
+
+/// Archive format minor version.
+pub const FORMAT_MINOR: u32 = 1;
+
+/// Archive format version as written.
+pub const FORMAT_VERSION: &str = "1.1";
+
+/// This program's version, recorded as the writer.
+pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
+
+/// Key of the format version in the Parquet file metadata.
+pub const KEY_FORMAT: &str = "cyclarc.format";
+
+/// Key of the JSON metadata.
+pub const KEY_META: &str = "cyclarc.meta";
+
+/// Key of the CRC-32 (hex) of the JSON metadata.
+pub const KEY_META_CRC: &str = "cyclarc.meta.crc32";
+
+/// The source an archive was made from.
+#[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
+pub struct SourceMeta {
+    /// File name (no folder).
+    pub name: String,
+    /// Size in bytes.
+    pub bytes: u64,
+    /// SHA-256 of the file, hex.
+    pub sha256: String,
+}
+
+impl SourceMeta {
+    /// Hash a source file.
+    pub fn of(path: &Path) -> Result<SourceMeta> {
+        let (sha256, bytes) = sha256_file(path)?;
+        Ok(SourceMeta {
+            name: path
+                .file_name()
+                .map(|n| n.to_string_lossy().into_owned())
+                .unwrap_or_default(),
+            bytes,
+            sha256,
+        })
+    }
+}
+
+/// What the archive says about one channel.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+pub struct ChannelMeta {
+    /// Name.
+    pub name: String,
+    /// Value type.
+    pub value_type: ValueType,
+    /// Sample rate (Hz).
+    pub sample_rate_hz: Option<f64>,
+    /// Runs (stretches between holes).
+    pub runs: usize,
+    /// Rows (samples) in the source.
+    pub rows: u64,
+    /// Whether the rows had to be sorted.
+    pub sorted_on_read: bool,
+    /// How the fundamental was found: `given`, `estimated`, `not_periodic`, or `mixed`.
+    pub fundamental: String,
+    /// First estimate or given value (Hz).
+    pub fundamental_hz: Option<f64>,
+    /// Confidence of the first estimate (autocorrelation at the period).
+    pub confidence: Option<f64>,
+    /// Lowest and highest tracked fundamental (Hz).
+    pub tracked_hz: Option<(f64, f64)>,
+    /// Blocks of the channel in the archive (format 1.1 on; absent in 1.0 archives).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub blocks: Option<u64>,
+}
+
+impl ChannelMeta {
+    /// Start a channel's metadata.
+    pub fn new(
+        info: &ChannelInfo,
+        sample_rate: Option<f64>,
+        runs: usize,
+        rows: u64,
+        sorted: bool,
+    ) -> Self {
+        ChannelMeta {
+            name: info.name.clone(),
+            value_type: info.value_type,
+            sample_rate_hz: sample_rate,
+            runs,
+            rows,
+            sorted_on_read: sorted,
+            fundamental: String::new(),
+            fundamental_hz: None,
+            confidence: None,
+            tracked_hz: None,
+            blocks: None,
+        }
+    }
+
+    /// Fold a run's segmentation into the channel's summary.
+    pub fn note_plan(&mut self, plan: &SegmentPlan) {
+        let kind = match plan.source {
+            FundamentalSource::Given => "given",
+            FundamentalSource::Estimated => "estimated",
+            FundamentalSource::NotPeriodic => "not_periodic",
+        };
+        if self.fundamental.is_empty() {
+            self.fundamental = kind.to_string();
+            self.fundamental_hz = plan.fundamental.map(|e| e.hz);
+            self.confidence = plan.fundamental.map(|e| e.confidence);
+        } else if self.fundamental != kind {
+            self.fundamental = "mixed".into();
+        }
+        if let Some((lo, hi)) = plan.tracked_range {
+            self.tracked_hz = Some(match self.tracked_hz {
+                Some((a, b)) => (a.min(lo), b.max(hi)),
+                None => (lo, hi),
+            });
+        }
+    }
+}
+
+/// The archive's file-level metadata.
+#[derive(Debug, Clone, Serialize, Deserialize)]
+pub struct ArchiveMeta {
+    /// Format version `MAJOR.MINOR`.
+    pub format: String,
+    /// Writer.
+    pub writer: String,
+    /// Source.
+    pub source: SourceMeta,
+    /// Resolved settings (as JSON).
+    pub settings: serde_json::Value,
+    /// Source schema, for decoding back to the source layout.
+    pub schema: SourceSchema,
+    /// Channels.
+    pub channels: Vec<ChannelMeta>,
+}
+
+impl ArchiveMeta {
+    /// Build the metadata of a new archive.
+    pub fn new(
+        source: SourceMeta,
+        settings: serde_json::Value,
+        schema: SourceSchema,
+        channels: Vec<ChannelMeta>,
+    ) -> Self {
+        let mut schema = schema;
+        if schema.layout == Layout::Long {
+            // Long: the order of first appearance follows the source's row order, which must
+            // not change the archive's bytes (the wide layout's column order is kept).
+            schema.channels.sort_by(|a, b| a.name.cmp(&b.name));
+        }
+        ArchiveMeta {
+            format: FORMAT_VERSION.into(),
+            writer: WRITER.into(),
+            source,
+            settings,
+            schema,
+            channels,
+        }
+    }
+}
+
+/// Check a `MAJOR.MINOR` version string against what this build reads.
+pub fn check_version(path: &Path, v: &str) -> Result<()> {
+    let major: u32 = v
+        .split('.')
+        .next()
+        .and_then(|m| m.parse().ok())
+        .ok_or_else(|| Error::Damaged {
+            file: path.to_path_buf(),
+            reason: format!("unreadable format version `{v}`"),
+        })?;
+    if major > FORMAT_MAJOR {
+        return Err(Error::FutureVersion {
+            file: path.to_path_buf(),
+            found: v.to_string(),
+            supported: FORMAT_MAJOR,
+        });
+    }
+    if major == 0 {
+        return Err(Error::Damaged {
+            file: path.to_path_buf(),
+            reason: format!("unknown format version `{v}`"),
+        });
+    }
+    Ok(())
+}

@@ -1,0 +1,178 @@
+//! Decode: rebuild the samples and timestamps of a block from its unpacked segments —
+//! prediction, dequantization and inverse FFT for Fourier segments, dequantization for
+//! time-domain samples, bit patterns for lossless ones — and put the NaN, ±Inf and null
+//! values back where they were.
+//!
+//! The encoder calls the same functions ([`synthesize`], [`crate::signal::predict`]), so the
+//! error it records is the error of this output.
+//!
+//! Does not: compare with sources (that is `jobs::verify`) or read files (that is `archive`).
+
+use crate::codec::frame::{Block, FrameError, SegmentRecord};
+use crate::codec::quant::{dequantize_bin, undelta_codes};
+use crate::model::{Basis, Special, SpecialKind, ValueType};
+use crate::signal::{half_len, is_real_bin, predict, Transform, C64};
+
+/// What a segment's prediction is based on: the previous Fourier segment of the same block.
+#[derive(Debug, Clone)]
+pub struct Prev {
+    /// Reconstructed coefficients of bins 0 … L−1.
+    pub coeffs: Vec<C64>,
+    /// Its length in samples.
+    pub n: usize,
+    /// Its ideal length Λ = K·P (as stored, f32 precision).
+    pub ideal: f64,
+}
+
+/// Synthesize a Fourier segment as the decoder does: inverse transform of the kept bins, then
+/// rounding to the output type. Returns (unrounded, rounded).
+pub fn synthesize(
+    coeffs: &[C64],
+    n: usize,
+    value_type: ValueType,
+    fft: &dyn Transform,
+) -> (Vec<f64>, Vec<f64>) {
+    let mut full = vec![C64::new(0.0, 0.0); half_len(n)];
+    full[..coeffs.len().min(half_len(n))].copy_from_slice(&coeffs[..coeffs.len().min(half_len(n))]);
+    let y = fft.inverse(&full, n);
+    let out = y.iter().map(|&v| value_type.round(v)).collect();
+    (y, out)
+}
+
+/// One rebuilt segment.
+#[derive(Debug, Clone, PartialEq)]
+pub struct DecodedSegment {
+    /// Output values in the channel's type (as f64); non-finite positions hold NaN.
+    pub values: Vec<f64>,
+    /// Null, NaN (with bits) and ±Inf values by index.
+    pub specials: Vec<Special>,
+    /// Reconstructed coefficients (Fourier only), bins 0 … L−1.
+    pub coeffs: Vec<C64>,
+}
+
+impl DecodedSegment {
+    /// Whether sample i is null.
+    pub fn is_null(&self, i: usize) -> bool {
+        self.specials
+            .binary_search_by_key(&(i as u32), |s| s.index)
+            .is_ok_and(|p| self.specials[p].kind == SpecialKind::Null)
+    }
+}
+
+/// Rebuild every segment of a block, in order.
+pub fn rebuild_block(
+    block: &Block,
+    fft: &dyn Transform,
+) -> Result<Vec<DecodedSegment>, FrameError> {
+    let mut prev: Option<Prev> = None;
+    let mut out = Vec::with_capacity(block.segments.len());
+    for (j, seg) in block.segments.iter().enumerate() {
+        let (values, coeffs) = match seg.basis {
+            Basis::Fourier => {
+                let coeffs = fourier_coeffs(seg, prev.as_ref())
+                    .map_err(|what| FrameError::Segment { index: j, what })?;
+                let (_, values) = synthesize(&coeffs, seg.len, block.value_type, fft);
+                (values, coeffs)
+            }
+            Basis::Samples => {
+                let q = if seg.predicted {
+                    undelta_codes(&seg.codes)
+                } else {
+                    seg.codes.clone()
+                };
+                let s = seg.step as f64;
+                let v = q
+                    .iter()
+                    .map(|&c| block.value_type.round(c as f64 * s))
+                    .collect();
+                (v, Vec::new())
+            }
+            Basis::Lossless => (lossless_values(seg, block.value_type), Vec::new()),
+        };
+        prev = (seg.basis == Basis::Fourier).then(|| Prev {
+            coeffs: coeffs.clone(),
+            n: seg.len,
+            ideal: seg.ideal_len as f64,
+        });
+        let mut values = values;
+        for sp in &seg.specials {
+            if let Some(v) = values.get_mut(sp.index as usize) {
+                *v = special_value(sp.kind, block.value_type);
+            }
+        }
+        out.push(DecodedSegment {
+            values,
+            specials: seg.specials.clone(),
+            coeffs,
+        });
+    }
+    Ok(out)
+}
+
+/// The f64 stand-in for a special value (NaN for null and NaN, exact bits for f64 NaN).
+pub fn special_value(kind: SpecialKind, value_type: ValueType) -> f64 {
+    match kind {
+        SpecialKind::Null => f64::NAN,
+        SpecialKind::Nan(bits) => match value_type {
+            ValueType::F32 => f32::from_bits(bits as u32) as f64,
+            _ => f64::from_bits(bits),
+        },
+        SpecialKind::PosInf => f64::INFINITY,
+        SpecialKind::NegInf => f64::NEG_INFINITY,
+    }
+}
+
+/// Reconstruct the kept Fourier coefficients of a segment from its codes and prediction.
+pub fn fourier_coeffs(seg: &SegmentRecord, prev: Option<&Prev>) -> Result<Vec<C64>, &'static str> {
+    let n = seg.len;
+    let l = seg.order as usize;
+    let pred = match (seg.predicted, prev) {
+        (true, Some(p)) => predict(&p.coeffs, p.n, p.ideal, n, l),
+        (true, None) => return Err("predicted segment without a previous Fourier segment"),
+        (false, _) => vec![C64::new(0.0, 0.0); l],
+    };
+    let step = seg.step as f64;
+    let mut codes = seg.codes.iter();
+    let mut out = Vec::with_capacity(l);
+    for (k, &p) in pred.iter().enumerate() {
+        let qr = *codes.next().ok_or("too few codes")?;
+        let qi = if is_real_bin(k, n) {
+            0
+        } else {
+            *codes.next().ok_or("too few codes")?
+        };
+        out.push(dequantize_bin(p, qr, qi, step, k, n));
+    }
+    Ok(out)
+}
+
+fn lossless_values(seg: &SegmentRecord, value_type: ValueType) -> Vec<f64> {
+    let mut out = vec![f64::NAN; seg.len];
+    let mut sp = seg.specials.iter().peekable();
+    let ints = if value_type.is_integer() {
+        if seg.predicted {
+            undelta_codes(&seg.codes)
+        } else {
+            seg.codes.clone()
+        }
+    } else {
+        Vec::new()
+    };
+    let mut next = 0usize;
+    for (i, slot) in out.iter_mut().enumerate() {
+        if sp.peek().is_some_and(|s| s.index as usize == i) {
+            sp.next();
+            continue;
+        }
+        *slot = match value_type {
+            ValueType::F64 => seg.raw.get(next).map_or(f64::NAN, |&b| f64::from_bits(b)),
+            ValueType::F32 => seg
+                .raw
+                .get(next)
+                .map_or(f64::NAN, |&b| f32::from_bits(b as u32) as f64),
+            ValueType::I16 | ValueType::I32 => ints.get(next).map_or(f64::NAN, |&v| v as f64),
+        };
+        next += 1;
+    }
+    out
+}

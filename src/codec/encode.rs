@@ -1,0 +1,295 @@
+//! Encode: one run of one channel, in memory, to coded blocks — plan the segments, fit each
+//! one, pack consecutive segments into blocks. Blocks are fitted in parallel with rayon;
+//! each block's content depends only on its own samples and parameters, so the result is the
+//! same whatever the thread count. Used by the file job, the tests and the benchmark alike.
+//!
+//! Does not: read or write files.
+
+use rayon::prelude::*;
+
+use crate::codec::decode::Prev;
+use crate::codec::fit::{fit_segment, refine_ideal, FitPlan, SegmentInput};
+use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Special};
+use crate::codec::params::{Budget, CodecParams};
+use crate::codec::quant::error_to_f32;
+use crate::codec::segment::{plan_segments, FundamentalSetting, PlannedSegment, SegmentPlan};
+use crate::error::{Error, Result};
+use crate::model::{Basis, Run, ValueType};
+use crate::signal::{amplitude_phase, rms_of, thd, Transform};
+
+/// Harmonics whose amplitude and phase become derived columns.
+pub const DERIVED_HARMONICS: usize = 3;
+
+/// Highest harmonic counted in the THD column (IEEE 519 counts up to the 50th).
+pub const THD_MAX_HARMONIC: usize = 50;
+
+/// What the codec says about one coded segment: where it starts, what it kept, its budget
+/// and recorded error, and derived figures (RMS, harmonics, THD) for trending.
+#[derive(Debug, Clone, PartialEq)]
+pub struct SegmentSummary {
+    /// First sample's time (ns).
+    pub start_ns: i64,
+    /// Samples.
+    pub samples: u32,
+    /// Basis.
+    pub basis: Basis,
+    /// Order (Fourier).
+    pub order: Option<u32>,
+    /// Whole cycles (periodic segments).
+    pub cycles: Option<u32>,
+    /// Budget (f32, rounded down).
+    pub budget_rms: f32,
+    /// Recorded error (f32, rounded up).
+    pub error_rms: f32,
+    /// Sample rate.
+    pub sample_rate_hz: f32,
+    /// Fundamental.
+    pub fundamental_hz: Option<f32>,
+    /// Source RMS.
+    pub rms: f32,
+    /// (amplitude, phase) of harmonics 1 … [`DERIVED_HARMONICS`].
+    pub harmonics: Vec<Option<(f32, f32)>>,
+    /// THD.
+    pub thd: Option<f32>,
+}
+
+/// One encoded block of one channel: its frame and a summary of each of its segments.
+#[derive(Debug, Clone)]
+pub struct EncodedBlock {
+    /// The channel.
+    pub channel: String,
+    /// The compressed frame.
+    pub frame: Vec<u8>,
+    /// One summary per segment, in order.
+    pub segments: Vec<SegmentSummary>,
+    /// The fit decisions, one per segment.
+    pub fits: Vec<FitPlan>,
+}
+
+/// A run of one channel, encoded.
+#[derive(Debug, Clone)]
+pub struct RunEncoding {
+    /// The segmentation.
+    pub plan: SegmentPlan,
+    /// The blocks.
+    pub blocks: Vec<EncodedBlock>,
+}
+
+impl RunEncoding {
+    /// Payload bytes of all blocks.
+    pub fn payload_bytes(&self) -> usize {
+        self.blocks.iter().map(|b| b.frame.len()).sum()
+    }
+    /// All fit decisions in order.
+    pub fn fits(&self) -> impl Iterator<Item = &FitPlan> {
+        self.blocks.iter().flat_map(|b| b.fits.iter())
+    }
+}
+
+/// The parameters of encoding one run.
+#[derive(Clone, Copy)]
+pub struct RunParams<'a> {
+    /// Channel name.
+    pub channel: &'a str,
+    /// Value type.
+    pub value_type: ValueType,
+    /// Sample rate (Hz); `None` for a single-sample channel.
+    pub sample_rate: Option<f64>,
+    /// Budget rule.
+    pub budget: Budget,
+    /// Codec parameters.
+    pub params: &'a CodecParams,
+    /// Transform.
+    pub fft: &'a dyn Transform,
+}
+
+/// Group planned segments into blocks (≤ `max_segments` and ≤ `max_samples` each, at least
+/// one segment).
+pub fn block_ranges(
+    segs: &[PlannedSegment],
+    max_segments: usize,
+    max_samples: usize,
+) -> Vec<std::ops::Range<usize>> {
+    let mut out = Vec::new();
+    let mut start = 0;
+    let mut samples = 0;
+    for (i, s) in segs.iter().enumerate() {
+        if i > start && (i - start >= max_segments || samples + s.len > max_samples) {
+            out.push(start..i);
+            start = i;
+            samples = 0;
+        }
+        samples += s.len;
+    }
+    if start < segs.len() {
+        out.push(start..segs.len());
+    }
+    out
+}
+
+/// Plan one run: segmentation with the run's sample rate.
+pub fn plan_run(run: &Run, p: &RunParams<'_>) -> SegmentPlan {
+    let mut seg = p.params.segment_settings(p.sample_rate.unwrap_or(1.0));
+    if p.sample_rate.is_none() {
+        seg.fundamental = FundamentalSetting::None;
+    }
+    plan_segments(&run.values, &seg)
+}
+
+/// Encode one run: segment, fit and pack; blocks in parallel.
+pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding> {
+    let plan = plan_run(run, p);
+    let ranges = block_ranges(
+        &plan.segments,
+        p.params.block_segments,
+        p.params.block_samples,
+    );
+    let blocks = ranges
+        .into_par_iter()
+        .map(|r| encode_block_of(run, &plan.segments[r], p))
+        .collect::<Result<Vec<_>>>()?;
+    Ok(RunEncoding { plan, blocks })
+}
+
+/// RMS over the finite values (without overflow or underflow, see [`rms_of`]).
+pub fn finite_rms(x: &[f64]) -> f64 {
+    rms_of(x.len(), |i| Some(x[i]).filter(|v| v.is_finite()))
+}
+
+/// Keep 16 significant bits of a derived value (relative rounding ≤ 2⁻¹⁶), so the low
+/// byte plane of derived columns is zero and compresses away.
+pub fn compact(v: f64) -> f32 {
+    let f = v as f32;
+    if !f.is_finite() {
+        return f;
+    }
+    let b = f.to_bits();
+    let r = f32::from_bits(b.wrapping_add(0x80) & !0xff);
+    if r.is_finite() {
+        r
+    } else {
+        f
+    }
+}
+
+pub(crate) fn encode_block_of(
+    run: &Run,
+    segs: &[PlannedSegment],
+    p: &RunParams<'_>,
+) -> Result<EncodedBlock> {
+    let first = segs[0].start;
+    let last = segs[segs.len() - 1].start + segs[segs.len() - 1].len;
+    let times = BlockTimes::from_times(&run.times[first..last]);
+    let sp_lo = run.specials.partition_point(|s| s.0 < first);
+    let sp_hi = run.specials.partition_point(|s| s.0 < last);
+    let specials = &run.specials[sp_lo..sp_hi];
+    let mut prev: Option<Prev> = None;
+    let mut records = Vec::with_capacity(segs.len());
+    let mut summaries = Vec::with_capacity(segs.len());
+    let mut fits = Vec::with_capacity(segs.len());
+    let fs = p.sample_rate.unwrap_or(0.0);
+    for s in segs {
+        let x = &run.values[s.start..s.start + s.len];
+        let rms = finite_rms(x);
+        let budget = p.budget.resolve(rms).map_err(|budget| Error::BudgetRange {
+            file: std::path::PathBuf::new(),
+            channel: p.channel.to_string(),
+            time_ns: run.times[s.start],
+            budget,
+        })?;
+        // Tune the previous segment's stored ideal length to the measured phase advance, so
+        // that this segment's prediction lines up (the decoder reads it from that segment).
+        if let (Some(pv), Some(rec), Some(row)) =
+            (prev.as_mut(), records.last_mut(), summaries.last_mut())
+        {
+            if let Some(ideal) = refine_ideal(x, s.cycles, pv) {
+                let stored = ideal as f32;
+                let last: &mut SegmentRecord = rec;
+                let last_row: &mut SegmentSummary = row;
+                last.ideal_len = stored;
+                pv.ideal = stored as f64;
+                if last.cycles > 0 {
+                    last_row.fundamental_hz =
+                        Some((fs * last.cycles as f64 / stored as f64) as f32);
+                }
+            }
+        }
+        let fitted = fit_segment(
+            SegmentInput {
+                values: x,
+                value_type: p.value_type,
+                budget_rms: budget,
+            },
+            prev.as_ref(),
+            p.fft,
+        );
+        prev = (fitted.plan.basis == Basis::Fourier).then(|| Prev {
+            coeffs: fitted.coeffs.clone(),
+            n: s.len,
+            ideal: s.ideal_len as f64,
+        });
+        let seg_specials: Vec<Special> = specials
+            .iter()
+            .filter(|sp| sp.0 >= s.start && sp.0 < s.start + s.len)
+            .map(|&(i, kind)| Special {
+                index: (i - s.start) as u32,
+                kind,
+            })
+            .collect();
+        let k = s.cycles as usize;
+        let harmonic = |h: usize| -> Option<(f32, f32)> {
+            if k == 0 || h * k > s.len / 2 {
+                return None;
+            }
+            let c = fitted.spectrum.get(h * k).copied().unwrap_or_default();
+            let (a, ph) = amplitude_phase(c, h * k, s.len);
+            Some((compact(a), compact(ph)))
+        };
+        summaries.push(SegmentSummary {
+            start_ns: run.times[s.start],
+            samples: s.len as u32,
+            basis: fitted.plan.basis,
+            order: fitted.plan.order,
+            cycles: (k > 0).then_some(s.cycles),
+            budget_rms: budget as f32,
+            error_rms: error_to_f32(fitted.plan.error_rms),
+            sample_rate_hz: fs as f32,
+            fundamental_hz: s.fundamental_hz(fs).map(|f| f as f32),
+            rms: compact(rms),
+            harmonics: (1..=DERIVED_HARMONICS).map(harmonic).collect(),
+            thd: if k > 0 {
+                thd(&fitted.spectrum, k, s.len, THD_MAX_HARMONIC).map(compact)
+            } else {
+                None
+            },
+        });
+        records.push(SegmentRecord {
+            len: s.len,
+            ideal_len: s.ideal_len,
+            cycles: s.cycles,
+            basis: fitted.plan.basis,
+            order: fitted.plan.order.unwrap_or(0),
+            step: fitted.plan.step,
+            predicted: fitted.plan.predicted,
+            codes: fitted.codes,
+            raw: fitted.raw,
+            specials: seg_specials,
+        });
+        fits.push(fitted.plan);
+    }
+    let block = Block {
+        value_type: p.value_type,
+        segments: records,
+        times,
+    };
+    let frame = encode_block(&block, p.params.zstd_level).map_err(|e| Error::InvalidOption {
+        name: "zstd-level".into(),
+        reason: e.to_string(),
+    })?;
+    Ok(EncodedBlock {
+        channel: p.channel.to_string(),
+        frame,
+        segments: summaries,
+        fits,
+    })
+}

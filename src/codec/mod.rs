@@ -1,0 +1,20 @@
+//! The codec: samples of one channel run in, coded blocks out, and back. It plans whole-cycle
+//! segments, fits each one (exact error of every order by Parseval, quantizer step, least
+//! order, basis), packs segments into zstd frames, and rebuilds samples from frames.
+//!
+//! Never names Parquet, paths or columns: files are the `source` and `archive` layers' work.
+
+pub mod decode;
+pub mod encode;
+pub mod fit;
+pub mod frame;
+pub mod params;
+pub mod quant;
+pub mod segment;
+
+pub use decode::{rebuild_block, synthesize, DecodedSegment, Prev};
+pub use encode::{encode_run, EncodedBlock, RunEncoding, RunParams, SegmentSummary};
+pub use fit::{fit_segment, FitPlan};
+pub use frame::{decode_block, encode_block, Block, FrameError};
+pub use params::{Budget, CodecParams};
+pub use segment::{plan_segments, SegmentPlan};

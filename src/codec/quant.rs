@@ -1,0 +1,168 @@
+//! Quantization and the integer codes: rounding a bin to a step, the codes' count and cost,
+//! ZigZag and delta coding, and the f32 rounding of recorded budgets (down) and errors (up).
+
+use crate::signal::{is_real_bin, weight, C64};
+
+/// Number of integer codes for order `l` on an `n`-sample segment.
+pub fn code_count(l: usize, n: usize) -> usize {
+    (0..l).map(|k| if is_real_bin(k, n) { 1 } else { 2 }).sum()
+}
+
+/// Quantize residual `c − p` with step Δ; returns (code_re, code_im, error energy of the bin
+/// with weight).
+#[inline]
+pub(crate) fn quantize_bin(c: C64, p: C64, step: f64, k: usize, n: usize) -> (i64, i64, f64) {
+    let r = c - p;
+    let qr = (r.re / step).round();
+    let qi = if is_real_bin(k, n) {
+        0.0
+    } else {
+        (r.im / step).round()
+    };
+    let er = r.re - qr * step;
+    let ei = if is_real_bin(k, n) {
+        r.im
+    } else {
+        r.im - qi * step
+    };
+    (qr as i64, qi as i64, weight(k, n) * (er * er + ei * ei))
+}
+
+/// Reconstruct one bin from prediction and codes (shared by encoder and decoder).
+#[inline]
+pub fn dequantize_bin(p: C64, qr: i64, qi: i64, step: f64, k: usize, n: usize) -> C64 {
+    if is_real_bin(k, n) {
+        C64::new(p.re + step * qr as f64, 0.0)
+    } else {
+        C64::new(p.re + step * qr as f64, p.im + step * qi as f64)
+    }
+}
+
+/// Estimated coded size in bits of a sequence of integer codes: its empirical order-0
+/// entropy, plus a table cost per distinct symbol; magnitudes of 256 and above are escaped.
+pub fn cost_bits(codes: &[i64]) -> f64 {
+    if codes.is_empty() {
+        return 0.0;
+    }
+    let mut hist = [0u32; 512];
+    let mut escaped_bits = 0.0;
+    for &q in codes {
+        let z = zigzag(q);
+        if z < 511 {
+            hist[z as usize] += 1;
+        } else {
+            hist[511] += 1;
+            escaped_bits += 2.0 * (64 - z.leading_zeros()) as f64;
+        }
+    }
+    let n = codes.len() as f64;
+    let mut bits = escaped_bits;
+    for &h in hist.iter().filter(|&&h| h > 0) {
+        let h = h as f64;
+        bits += h * (n / h).log2() + 6.0;
+    }
+    bits
+}
+
+/// ZigZag map of a signed integer.
+#[inline]
+pub fn zigzag(v: i64) -> u64 {
+    ((v << 1) ^ (v >> 63)) as u64
+}
+
+/// Inverse of [`zigzag`].
+#[inline]
+pub fn unzigzag(z: u64) -> i64 {
+    ((z >> 1) as i64) ^ -((z & 1) as i64)
+}
+
+/// Round a budget to the f32 that is not above it (budgets are stored as f32).
+pub fn budget_to_f32(b: f64) -> f64 {
+    let f = b as f32;
+    if (f as f64) > b {
+        f32_next_down(f) as f64
+    } else {
+        f as f64
+    }
+}
+
+/// Round a recorded error up to the f32 that is not below it.
+pub fn error_to_f32(e: f64) -> f32 {
+    let f = e as f32;
+    if (f as f64) < e {
+        f32_next_up(f)
+    } else {
+        f
+    }
+}
+
+fn f32_next_down(f: f32) -> f32 {
+    if f.is_nan() || f == f32::NEG_INFINITY {
+        return f;
+    }
+    if f == 0.0 {
+        return -f32::from_bits(1);
+    }
+    let b = f.to_bits();
+    f32::from_bits(if f > 0.0 { b - 1 } else { b + 1 })
+}
+
+fn f32_next_up(f: f32) -> f32 {
+    if f.is_nan() || f == f32::INFINITY {
+        return f;
+    }
+    if f == 0.0 {
+        return f32::from_bits(1);
+    }
+    let b = f.to_bits();
+    f32::from_bits(if f > 0.0 { b + 1 } else { b - 1 })
+}
+
+/// First differences (the first value kept as is).
+pub fn delta_codes(q: &[i64]) -> Vec<i64> {
+    let mut prev = 0i64;
+    q.iter()
+        .map(|&v| {
+            let d = v.wrapping_sub(prev);
+            prev = v;
+            d
+        })
+        .collect()
+}
+
+/// Inverse of [`delta_codes`].
+pub fn undelta_codes(d: &[i64]) -> Vec<i64> {
+    let mut acc = 0i64;
+    d.iter()
+        .map(|&v| {
+            acc = acc.wrapping_add(v);
+            acc
+        })
+        .collect()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn zigzag_round_trips_extremes() {
+        for v in [0i64, 1, -1, 63, -64, i64::MAX, i64::MIN] {
+            assert_eq!(unzigzag(zigzag(v)), v);
+        }
+    }
+
+    #[test]
+    fn delta_round_trips_with_wrapping() {
+        let q = vec![i64::MAX, i64::MIN, 0, 5, -7];
+        assert_eq!(undelta_codes(&delta_codes(&q)), q);
+    }
+
+    #[test]
+    fn budget_rounding_never_loosens_and_error_never_tightens() {
+        for b in [0.1f64, 1.0 / 3.0, 1e-30, 12345.678] {
+            assert!(budget_to_f32(b) <= b);
+            assert!(error_to_f32(b) as f64 >= b);
+        }
+    }
+}
