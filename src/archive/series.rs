@@ -101,7 +101,7 @@ pub fn unpack_block(
 
 /// Decode the selected channels (all when `channels` is empty), keeping samples with
 /// `from ≤ t < to`. Blocks outside the range are not unpacked. The archive must be whole:
-/// a missing, repeated or damaged block is [`crate::Error::Damaged`], naming the channel and
+/// a missing, repeated or damaged block is [`crate::error::Error::Damaged`], naming the channel and
 /// the block (see [`check_blocks`]).
 pub fn decode_channels(
     archive: &Archive,
@@ -109,7 +109,7 @@ pub fn decode_channels(
     from: Option<i64>,
     to: Option<i64>,
     fft: &dyn Transform,
-) -> Result<Vec<ChannelSeries>, crate::Error> {
+) -> Result<Vec<ChannelSeries>, crate::error::Error> {
     decode_selected(archive, channels, from, to, fft, false).map(|d| d.series)
 }
 
@@ -131,7 +131,7 @@ pub fn decode_salvage(
     from: Option<i64>,
     to: Option<i64>,
     fft: &dyn Transform,
-) -> Result<Salvaged, crate::Error> {
+) -> Result<Salvaged, crate::error::Error> {
     decode_selected(archive, channels, from, to, fft, true)
 }
 
@@ -142,9 +142,9 @@ fn decode_selected(
     to: Option<i64>,
     fft: &dyn Transform,
     salvage: bool,
-) -> Result<Salvaged, crate::Error> {
+) -> Result<Salvaged, crate::error::Error> {
     use rayon::prelude::*;
-    let damaged = |reason: String| crate::Error::Damaged {
+    let damaged = |reason: String| crate::error::Error::Damaged {
         file: archive.path.clone(),
         reason,
     };

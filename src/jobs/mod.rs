@@ -2,6 +2,7 @@
 //! sorting first), decode an archive back to Parquet, verify an archive against its source,
 //! and run a pipeline file over many sources with a manifest.
 
+pub mod control;
 pub mod decode;
 pub mod encode;
 pub mod pipeline;

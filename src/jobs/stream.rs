@@ -17,7 +17,7 @@ use crate::codec::fit::FitPlan;
 use crate::codec::params::Budget;
 use crate::codec::segment::{FundamentalSetting, PlannedSegment, Planner};
 use crate::error::{Error, Result};
-use crate::jobs::encode::{progress_bar, EncodeSummary, JobControl};
+use crate::jobs::control::{progress_bar, EncodeSummary, JobControl};
 use crate::model::{ChannelInfo, Run, ValueType};
 use crate::options::Settings;
 use crate::signal::RealFft;
