@@ -9,7 +9,7 @@ use std::collections::BTreeMap;
 
 use serde::Serialize;
 
-use crate::archive::schema::{DERIVED_COLUMNS, PAYLOAD_COLUMNS};
+use crate::archive::schema::{column_class, ColumnClass};
 use crate::archive::Archive;
 use crate::jobs::{EncodeSummary, VerifyReport};
 use crate::model::Basis;
@@ -73,15 +73,16 @@ pub struct Inspect {
 
 /// Build the `inspect` result from an archive.
 pub fn inspect(a: &Archive) -> Inspect {
-    let sum_cols = |names: &[&str]| -> u64 {
+    // Columns this build does not write (a newer minor version's) count as metadata.
+    let sum_cols = |class: ColumnClass| -> u64 {
         a.column_bytes
             .iter()
-            .filter(|(n, _)| names.contains(&n.as_str()))
+            .filter(|(n, _)| column_class(n) == Some(class))
             .map(|(_, b)| *b)
             .sum()
     };
-    let payload = sum_cols(PAYLOAD_COLUMNS);
-    let derived = sum_cols(DERIVED_COLUMNS);
+    let payload = sum_cols(ColumnClass::Payload);
+    let derived = sum_cols(ColumnClass::Derived);
     let all: u64 = a.column_bytes.iter().map(|(_, b)| *b).sum();
     let metadata = all - payload - derived;
     let split = ByteSplit {

@@ -72,78 +72,168 @@ pub struct SegmentRow {
     pub checksum: Option<u32>,
 }
 
-/// The archive's Arrow schema.
-pub fn archive_schema() -> Schema {
-    let f32n = |n: &str| Field::new(n, DataType::Float32, true);
-    let mut fields = vec![
-        Field::new("channel", DataType::Utf8, false),
-        Field::new(
-            "start",
-            DataType::Timestamp(TimeUnit::Nanosecond, Some("UTC".into())),
-            false,
-        ),
-        Field::new("samples", DataType::Int32, false),
-        Field::new("basis", DataType::Utf8, false),
-        Field::new("order", DataType::Int32, true),
-        Field::new("cycles", DataType::Int32, true),
-        Field::new("budget_rms", DataType::Float32, false),
-        Field::new("error_rms", DataType::Float32, false),
-        Field::new("sample_rate_hz", DataType::Float32, false),
-        f32n("fundamental_hz"),
-        Field::new("rms", DataType::Float32, false),
-    ];
-    for h in 1..=DERIVED_HARMONICS {
-        fields.push(f32n(&format!("h{h}_amp")));
-        fields.push(f32n(&format!("h{h}_phase")));
-    }
-    fields.push(f32n("thd"));
-    fields.push(Field::new("block", DataType::Int32, false));
-    fields.push(Field::new("payload", DataType::Binary, true));
-    fields.push(Field::new("checksum", DataType::UInt32, true));
-    Schema::new(fields)
+/// The Arrow type of an archive column.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ColumnType {
+    /// UTF-8 text.
+    Utf8,
+    /// Timestamp, nanoseconds, UTC.
+    TimestampNsUtc,
+    /// 32-bit signed integer.
+    Int32,
+    /// 32-bit unsigned integer.
+    UInt32,
+    /// 32-bit float.
+    Float32,
+    /// Bytes.
+    Binary,
 }
 
-/// Columns whose bytes count as metadata (not payload, not derived) in `inspect`.
-pub const DERIVED_COLUMNS: &[&str] = &[
-    "fundamental_hz",
-    "rms",
-    "h1_amp",
-    "h1_phase",
-    "h2_amp",
-    "h2_phase",
-    "h3_amp",
-    "h3_phase",
-    "thd",
-];
+impl ColumnType {
+    /// The Arrow data type.
+    pub fn data_type(self) -> DataType {
+        match self {
+            ColumnType::Utf8 => DataType::Utf8,
+            ColumnType::TimestampNsUtc => {
+                DataType::Timestamp(TimeUnit::Nanosecond, Some("UTC".into()))
+            }
+            ColumnType::Int32 => DataType::Int32,
+            ColumnType::UInt32 => DataType::UInt32,
+            ColumnType::Float32 => DataType::Float32,
+            ColumnType::Binary => DataType::Binary,
+        }
+    }
+}
 
-/// Payload columns in `inspect`.
-pub const PAYLOAD_COLUMNS: &[&str] = &["payload", "checksum"];
+/// How a column is written.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ColumnWriting {
+    /// The writer's defaults (dictionary encoding): few distinct values.
+    Dictionary,
+    /// Delta-coded integers, no dictionary: steadily increasing values.
+    Delta,
+    /// Floats split by byte plane, no dictionary.
+    ByteStreamSplit,
+    /// Plain, no dictionary.
+    Plain,
+    /// Plain, not compressed again, no statistics: already compressed frames.
+    Frame,
+}
+
+/// What a column's bytes count as in `inspect`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ColumnClass {
+    /// What a segment is: channel, time, basis, order, budget, error, block.
+    Metadata,
+    /// Figures for trending, computed from the source and the coefficients.
+    Derived,
+    /// The coded blocks and their checksums.
+    Payload,
+}
+
+/// One column of the archive.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct Column {
+    /// Name.
+    pub name: &'static str,
+    /// Type.
+    pub data_type: ColumnType,
+    /// Whether it may be null.
+    pub nullable: bool,
+    /// How it is written.
+    pub writing: ColumnWriting,
+    /// What its bytes count as.
+    pub class: ColumnClass,
+}
+
+const fn column(
+    name: &'static str,
+    data_type: ColumnType,
+    nullable: bool,
+    writing: ColumnWriting,
+    class: ColumnClass,
+) -> Column {
+    Column {
+        name,
+        data_type,
+        nullable,
+        writing,
+        class,
+    }
+}
+
+/// The archive's columns, in file order: the one table the schema, the writer's properties
+/// and `inspect`'s byte breakdown are made from. The harmonic columns are `h1_…` to
+/// `h{DERIVED_HARMONICS}_…`.
+pub const COLUMNS: &[Column] = {
+    use ColumnClass::{Derived, Metadata, Payload};
+    use ColumnType::{Binary, Float32, Int32, TimestampNsUtc, UInt32, Utf8};
+    use ColumnWriting::{ByteStreamSplit as Bss, Delta, Dictionary as Dict, Frame, Plain};
+    &[
+        column("channel", Utf8, false, Dict, Metadata),
+        column("start", TimestampNsUtc, false, Delta, Metadata),
+        column("samples", Int32, false, Dict, Metadata),
+        column("basis", Utf8, false, Dict, Metadata),
+        column("order", Int32, true, Dict, Metadata),
+        column("cycles", Int32, true, Dict, Metadata),
+        column("budget_rms", Float32, false, Bss, Metadata),
+        column("error_rms", Float32, false, Bss, Metadata),
+        column("sample_rate_hz", Float32, false, Dict, Metadata),
+        column("fundamental_hz", Float32, true, Bss, Derived),
+        column("rms", Float32, false, Bss, Derived),
+        column("h1_amp", Float32, true, Bss, Derived),
+        column("h1_phase", Float32, true, Bss, Derived),
+        column("h2_amp", Float32, true, Bss, Derived),
+        column("h2_phase", Float32, true, Bss, Derived),
+        column("h3_amp", Float32, true, Bss, Derived),
+        column("h3_phase", Float32, true, Bss, Derived),
+        column("thd", Float32, true, Bss, Derived),
+        column("block", Int32, false, Delta, Metadata),
+        column("payload", Binary, true, Frame, Payload),
+        column("checksum", UInt32, true, Plain, Payload),
+    ]
+};
+
+// The table names exactly the derived harmonics' columns.
+const _: () = assert!(COLUMNS.len() == 15 + 2 * DERIVED_HARMONICS);
+
+/// The class of a column by name (`None` for a column this build does not write).
+pub fn column_class(name: &str) -> Option<ColumnClass> {
+    COLUMNS.iter().find(|c| c.name == name).map(|c| c.class)
+}
+
+/// The archive's Arrow schema.
+pub fn archive_schema() -> Schema {
+    Schema::new(
+        COLUMNS
+            .iter()
+            .map(|c| Field::new(c.name, c.data_type.data_type(), c.nullable))
+            .collect::<Vec<_>>(),
+    )
+}
 
 pub(crate) fn writer_properties() -> WriterProperties {
     let mut b = WriterProperties::builder()
         .set_compression(Compression::ZSTD(ZstdLevel::try_new(9).unwrap_or_default()))
         .set_max_row_group_row_count(Some(1 << 20));
-    let col = |n: &str| ColumnPath::from(n);
-    for n in ["start", "block"] {
-        b = b
-            .set_column_dictionary_enabled(col(n), false)
-            .set_column_encoding(col(n), Encoding::DELTA_BINARY_PACKED);
+    for c in COLUMNS {
+        let col = || ColumnPath::from(c.name);
+        b = match c.writing {
+            ColumnWriting::Dictionary => b,
+            ColumnWriting::Delta => b
+                .set_column_dictionary_enabled(col(), false)
+                .set_column_encoding(col(), Encoding::DELTA_BINARY_PACKED),
+            ColumnWriting::ByteStreamSplit => b
+                .set_column_dictionary_enabled(col(), false)
+                .set_column_encoding(col(), Encoding::BYTE_STREAM_SPLIT),
+            ColumnWriting::Plain => b.set_column_dictionary_enabled(col(), false),
+            ColumnWriting::Frame => b
+                .set_column_dictionary_enabled(col(), false)
+                .set_column_compression(col(), Compression::UNCOMPRESSED)
+                .set_column_statistics_enabled(col(), EnabledStatistics::None),
+        };
     }
-    let mut floats = vec!["error_rms", "rms", "fundamental_hz", "thd", "budget_rms"];
-    let names: Vec<String> = (1..=DERIVED_HARMONICS)
-        .flat_map(|h| [format!("h{h}_amp"), format!("h{h}_phase")])
-        .collect();
-    floats.extend(names.iter().map(String::as_str));
-    for n in floats {
-        b = b
-            .set_column_dictionary_enabled(col(n), false)
-            .set_column_encoding(col(n), Encoding::BYTE_STREAM_SPLIT);
-    }
-    b.set_column_dictionary_enabled(col("payload"), false)
-        .set_column_compression(col("payload"), Compression::UNCOMPRESSED)
-        .set_column_statistics_enabled(col("payload"), EnabledStatistics::None)
-        .set_column_dictionary_enabled(col("checksum"), false)
-        .build()
+    b.build()
 }
 
 pub(crate) fn rows_to_batch(
