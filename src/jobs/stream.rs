@@ -392,7 +392,7 @@ pub(crate) fn encode_pass(
     while let Some(chunks) = src.next_chunks() {
         crate::stop::check()?;
         for c in chunks? {
-            bar.inc(c.times.len() as u64);
+            bar.inc(c.samples.len() as u64);
             while channels.len() <= c.channel {
                 let info = src.schema.channels[channels.len()].clone();
                 channels.push(ChannelEncoder::new(source, info, settings));

@@ -30,12 +30,7 @@ pub struct ChannelSamples {
 impl ChannelSamples {
     /// Append a chunk read from the source.
     pub fn extend(&mut self, c: ChannelChunk) {
-        self.extend_samples(ChannelSamples {
-            times: c.times,
-            values: c.values,
-            rows: c.rows,
-            specials: c.specials,
-        });
+        self.extend_samples(c.samples);
     }
 
     /// Append samples (indices of specials relative to `c`).

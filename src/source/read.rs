@@ -23,21 +23,15 @@ use crate::fsio::{contain, open_parquet, READ_BATCH_ROWS};
 use crate::model::{
     ChannelInfo, DictKey, Layout, NameType, SourceSchema, SpecialKind, TimeType, ValueType,
 };
-use crate::source::Mapping;
+use crate::source::{ChannelSamples, Mapping};
 
 /// Samples of one channel from one batch, in source row order.
 #[derive(Debug, Default, Clone)]
 pub struct ChannelChunk {
     /// Index into [`SourceSchema::channels`].
     pub channel: usize,
-    /// Times (ns since the epoch).
-    pub times: Vec<i64>,
-    /// Values (non-finite and null positions hold NaN).
-    pub values: Vec<f64>,
-    /// Source row (0-based, over the whole file) of each sample.
-    pub rows: Vec<u64>,
-    /// Non-finite and null values: (index into this chunk, kind).
-    pub specials: Vec<(usize, SpecialKind)>,
+    /// Times, values, source rows and special values (indices into this chunk).
+    pub samples: ChannelSamples,
 }
 
 /// A Parquet source being scanned.
@@ -449,8 +443,8 @@ impl Source {
                     });
                     let chunk = &mut chunks[s];
                     push_value(chunk, &values, i, vt);
-                    chunk.times.push(t);
-                    chunk.rows.push(first_row + i as u64);
+                    chunk.samples.times.push(t);
+                    chunk.samples.rows.push(first_row + i as u64);
                 }
                 Ok(chunks)
             }
@@ -461,9 +455,11 @@ impl Source {
                     let values = batch.column(col).clone();
                     let mut chunk = ChannelChunk {
                         channel: ch,
-                        times: times.clone(),
-                        rows: (first_row..first_row + times.len() as u64).collect(),
-                        ..Default::default()
+                        samples: ChannelSamples {
+                            times: times.clone(),
+                            rows: (first_row..first_row + times.len() as u64).collect(),
+                            ..Default::default()
+                        },
                     };
                     for i in 0..times.len() {
                         push_value(&mut chunk, &values, i, vt);
@@ -541,10 +537,10 @@ impl Source {
 
 /// Append value i of `col` to the chunk, recording nulls and non-finite values.
 fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType) {
-    let idx = chunk.values.len();
+    let idx = chunk.samples.values.len();
     if col.is_null(i) {
-        chunk.values.push(f64::NAN);
-        chunk.specials.push((idx, SpecialKind::Null));
+        chunk.samples.values.push(f64::NAN);
+        chunk.samples.specials.push((idx, SpecialKind::Null));
         return;
     }
     let v = match vt {
@@ -552,8 +548,9 @@ fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType)
         ValueType::F32 => {
             let f = col.as_primitive::<Float32Type>().value(i);
             if f.is_nan() {
-                chunk.values.push(f64::NAN);
+                chunk.samples.values.push(f64::NAN);
                 chunk
+                    .samples
                     .specials
                     .push((idx, SpecialKind::Nan(f.to_bits() as u64)));
                 return;
@@ -564,15 +561,18 @@ fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType)
         ValueType::I32 => col.as_primitive::<Int32Type>().value(i) as f64,
     };
     if v.is_nan() {
-        chunk.values.push(f64::NAN);
-        chunk.specials.push((idx, SpecialKind::Nan(v.to_bits())));
+        chunk.samples.values.push(f64::NAN);
+        chunk
+            .samples
+            .specials
+            .push((idx, SpecialKind::Nan(v.to_bits())));
     } else if v == f64::INFINITY {
-        chunk.values.push(f64::NAN);
-        chunk.specials.push((idx, SpecialKind::PosInf));
+        chunk.samples.values.push(f64::NAN);
+        chunk.samples.specials.push((idx, SpecialKind::PosInf));
     } else if v == f64::NEG_INFINITY {
-        chunk.values.push(f64::NAN);
-        chunk.specials.push((idx, SpecialKind::NegInf));
+        chunk.samples.values.push(f64::NAN);
+        chunk.samples.specials.push((idx, SpecialKind::NegInf));
     } else {
-        chunk.values.push(v);
+        chunk.samples.values.push(v);
     }
 }

@@ -7,33 +7,30 @@
 //! damage to a small archive, to its compressed block frames and to decompressed block bytes,
 //! counting panics with `catch_unwind`; there must be none.
 
-mod harness;
-
 use std::panic::{catch_unwind, AssertUnwindSafe};
 use std::path::{Path, PathBuf};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
+use crate::support::rows::*;
+use crate::support::*;
 use arrow::array::{ArrayRef, Float32Array, Int16Array, RecordBatch};
 use arrow::datatypes::{DataType, Field, Schema};
-use harness::*;
-use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
-use parquet::arrow::ArrowWriter;
 use parquet::file::metadata::KeyValue;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
 /// A small wide source (f32 and i16 channels, 3 s at 2 kHz, a hole, NaN and nulls) and its
 /// archive (budget 0.01), verified. Returns (source, archive, the clean decode as a table).
-fn archived(lab: &Lab) -> (PathBuf, PathBuf, Table) {
+fn archived(lab: &Lab) -> (PathBuf, PathBuf, Rows) {
     let fs = 2000.0;
     let n = 6000;
     let mut t = grid(n, fs);
     for x in &mut t[4000..] {
         *x += 250_000_000; // a 0.25 s hole: two runs, so two blocks per channel
     }
-    let a: Vec<Option<f32>> = wave(n, fs, 50.0, 1.0)
+    let a: Vec<Option<f32>> = clean_wave(n, fs, 50.0, 1.0)
         .iter()
         .enumerate()
         .map(|(i, &v)| match i {
@@ -42,7 +39,7 @@ fn archived(lab: &Lab) -> (PathBuf, PathBuf, Table) {
             _ => Some(v as f32),
         })
         .collect();
-    let b: Vec<Option<i16>> = wave(n, fs, 60.0, 3000.0)
+    let b: Vec<Option<i16>> = clean_wave(n, fs, 60.0, 3000.0)
         .iter()
         .enumerate()
         .map(|(i, &v)| (i % 1000 != 5).then_some(v.round() as i16))
@@ -57,21 +54,13 @@ fn archived(lab: &Lab) -> (PathBuf, PathBuf, Table) {
         ],
     );
     let arch = lab.path("a.cyclarc.parquet");
-    lab.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "0.01",
-    ])
-    .expect(0);
+    lab.encode(&src, &arch, &["--budget-rms", "0.01"]).expect(0);
     lab.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
     let clean = lab.path("clean.parquet");
     lab.run(&["decode", ps(&arch), "--out", ps(&clean)])
         .expect(0);
-    let table = read_table(&clean);
+    let table = read_rows(&clean);
     std::fs::remove_file(&clean).expect("remove");
     (src, arch, table)
 }
@@ -104,14 +93,14 @@ enum Outcome {
 
 /// Decode a (possibly damaged) archive: it must refuse (exit 1, or 2 naming a newer version)
 /// with nothing written, or write exactly the undamaged decode.
-fn decode_checked(lab: &Lab, arch: &Path, clean: &Table) -> Outcome {
+fn decode_checked(lab: &Lab, arch: &Path, clean: &Rows) -> Outcome {
     let out = lab.path("d.parquet");
     let before = lab.tree();
     let ran = lab.run(&["decode", ps(arch), "--out", ps(&out)]);
     ran.no_panic();
     match ran.code {
         Some(0) => {
-            let got = read_table(&out);
+            let got = read_rows(&out);
             ran.ensure(
                 &got == clean,
                 "decoded a damaged archive into different data",
@@ -323,14 +312,7 @@ fn truncated_archives_fail_verify_decode_and_inspect() {
 /// columns), `cyclarc.format` and the metadata's `format` set to `version`, an extra metadata
 /// field, the metadata's CRC-32, and a matching digest beside it.
 fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
-    let f = std::fs::File::open(arch).expect("archive");
-    let b = ParquetRecordBatchReaderBuilder::try_new(f).expect("Parquet");
-    let kv = b
-        .metadata()
-        .file_metadata()
-        .key_value_metadata()
-        .cloned()
-        .unwrap_or_default();
+    let kv = key_values(arch);
     let meta = kv
         .iter()
         .find(|e| e.key == "cyclarc.meta")
@@ -339,47 +321,32 @@ fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
     let mut meta: serde_json::Value = serde_json::from_str(&meta).expect("JSON");
     meta["format"] = version.into();
     meta["written_by_a_later_version"] = serde_json::json!({"note": "a field this build ignores"});
-    let fields: Vec<Field> = b
+    let rows = read_table(arch).batch;
+    let mut fields: Vec<Field> = rows
         .schema()
         .fields()
         .iter()
         .map(|f| f.as_ref().clone())
         .collect();
-    let batches: Vec<RecordBatch> = b
-        .build()
-        .expect("reader")
-        .map(|r| r.expect("batch"))
-        .collect();
-    let mut new_fields = fields.clone();
+    let mut cols = rows.columns().to_vec();
     if extra {
-        new_fields.push(Field::new("h4_amp", DataType::Float32, true));
+        fields.push(Field::new("h4_amp", DataType::Float32, true));
+        cols.push(Arc::new(Float32Array::from(vec![
+            Some(0.5f32);
+            rows.num_rows()
+        ])));
     }
-    let schema = Arc::new(Schema::new(new_fields));
-    let mut w = ArrowWriter::try_new(
-        std::fs::File::create(out).expect("create"),
-        schema.clone(),
-        None,
-    )
-    .expect("writer");
-    for batch in batches {
-        let mut cols = batch.columns().to_vec();
-        if extra {
-            cols.push(Arc::new(Float32Array::from(vec![
-                Some(0.5f32);
-                batch.num_rows()
-            ])));
-        }
-        w.write(&RecordBatch::try_new(schema.clone(), cols).expect("batch"))
-            .expect("write");
-    }
-    w.append_key_value_metadata(KeyValue::new("cyclarc.format".into(), version.to_string()));
+    let batch = RecordBatch::try_new(Arc::new(Schema::new(fields)), cols).expect("batch");
     let meta = meta.to_string();
-    w.append_key_value_metadata(KeyValue::new(
-        "cyclarc.meta.crc32".into(),
-        format!("{:08x}", crc32fast::hash(meta.as_bytes())),
-    ));
-    w.append_key_value_metadata(KeyValue::new("cyclarc.meta".into(), meta));
-    w.close().expect("close");
+    let kv = vec![
+        KeyValue::new("cyclarc.format".into(), version.to_string()),
+        KeyValue::new(
+            "cyclarc.meta.crc32".into(),
+            format!("{:08x}", crc32fast::hash(meta.as_bytes())),
+        ),
+        KeyValue::new("cyclarc.meta".into(), meta),
+    ];
+    write_parquet_with(out, &batch, None, kv);
     let name = out
         .file_name()
         .expect("name")
@@ -418,7 +385,7 @@ fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
         .expect(0);
     lab.run(&["decode", ps(&v17), "--out", ps(&out)]).expect(0);
     assert_eq!(
-        read_table(&out),
+        read_rows(&out),
         clean,
         "a newer minor version decodes the same rows"
     );
@@ -606,7 +573,8 @@ fn random_damage_never_panics_the_library() {
     let target = lab.path("m.cyclarc.parquet");
     let foot = footer(&good);
     let mut r = ChaCha8Rng::seed_from_u64(0x5eed_da7a);
-    quiet_counting_hook("random_damage_never_panics_the_library");
+    // Test threads are named by their path in the test binary.
+    quiet_counting_hook("damage::random_damage_never_panics_the_library");
     let started = Instant::now();
     let budget = Duration::from_secs(12);
     let (mut files, mut read_ok, mut decoded_ok) = (0u64, 0u64, 0u64);

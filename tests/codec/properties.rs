@@ -14,9 +14,8 @@
 //!   prediction rebuilt from the previous decoded segment by `signal::predict` as the
 //!   decoder does;
 //! - the bytes do not depend on the thread count (DEVELOPERS, "Determinism").
-mod common;
-
-use common::*;
+use crate::support::codec::*;
+use crate::support::signals::*;
 use cyclarc::codec::fit::error_by_order;
 use cyclarc::codec::{encode_run, RunEncoding, RunParams};
 use cyclarc::model::Basis;

@@ -5,15 +5,16 @@
 //! Checked against: the README's Pipelines section (archive names, manifest, skip rules, one
 //! bad input reported while the rest run, non-zero exit), the SHA-256 of the source files
 //! computed here, and demo-data/README.md (the channels of each demo file).
-mod cli_util;
-
 use std::path::{Path, PathBuf};
 
+use crate::support::archive::*;
+use crate::support::series::*;
+use crate::support::source::*;
+use crate::support::*;
 use arrow::datatypes::TimeUnit;
-use cli_util::*;
 use cyclarc::options::Budget;
 
-fn write_sources(s: &Session) -> (PathBuf, PathBuf) {
+fn write_sources(s: &Lab) -> (PathBuf, PathBuf) {
     let dir = s.path("data/ps-north");
     std::fs::create_dir_all(&dir).expect("mkdir");
     let vib = dir.join("vib-0301.parquet");
@@ -95,7 +96,7 @@ fn pairs(v: &[(&str, &str)]) -> Vec<(String, String)> {
 
 #[test]
 fn run_archives_skips_reruns_rearchives_on_change_and_reports_a_bad_input() {
-    let s = Session::new();
+    let s = Lab::new();
     let (vib, cur) = write_sources(&s);
     // A file the glob matches that is not Parquet.
     let bad = s.path("data/ps-north/vib-0302.parquet");
@@ -242,7 +243,7 @@ fn run_archives_skips_reruns_rearchives_on_change_and_reports_a_bad_input() {
 
 #[test]
 fn run_with_a_missing_pipeline_or_bad_key_is_a_usage_error() {
-    let s = Session::new();
+    let s = Lab::new();
     let ran = s.run(&["run", ps(&s.path("none.toml"))]);
     ran.expect(2)
         .ensure(ran.stderr.contains("none.toml"), "names the file");
@@ -269,7 +270,7 @@ const DEMO: [(&str, &[&str]); 2] = [
 
 #[test]
 fn demo_pipeline_runs_and_inspect_lists_every_channel() {
-    let s = Session::new();
+    let s = Lab::new();
     let root = Path::new(env!("CARGO_MANIFEST_DIR"));
     let text = std::fs::read_to_string(root.join("pipelines/demo.toml")).expect("demo.toml");
     let out = s.path("demo-archive");

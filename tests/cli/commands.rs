@@ -4,12 +4,13 @@
 //! setting (budgets, fundamental, cycles, channel lists, time range), the README's documented
 //! behaviour (exit codes, 200 ms segments, inclusive/exclusive range), or another run of the
 //! binary (determinism: the bytes of the other archive).
-mod cli_util;
-
 use std::path::Path;
 
+use crate::support::archive::*;
+use crate::support::series::*;
+use crate::support::source::*;
+use crate::support::*;
 use arrow::datatypes::TimeUnit;
-use cli_util::*;
 
 const FS: f64 = 10_000.0;
 const N: usize = 6000;
@@ -59,12 +60,11 @@ fn archived_channels(archive: &Path) -> Vec<String> {
 
 #[test]
 fn encode_channels_keeps_only_those_long() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
     let (arch, dec) = (s.path("a.parquet"), s.path("d.parquet"));
-    s.run(&["encode", ps(&src), "--out", ps(&arch), "--channels", "a,c"])
-        .expect(0);
+    s.encode(&src, &arch, &["--channels", "a,c"]).expect(0);
     assert_eq!(archived_channels(&arch), ["a", "c"], "the user's list");
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
@@ -74,21 +74,12 @@ fn encode_channels_keeps_only_those_long() {
 
 #[test]
 fn encode_channels_keeps_only_those_wide() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     wide_source(&src);
     let (arch, dec) = (s.path("a.parquet"), s.path("d.parquet"));
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--channels",
-        "ic,ia",
-        "--budget-rms",
-        "0",
-    ])
-    .expect(0);
+    s.encode(&src, &arch, &["--channels", "ic,ia", "--budget-rms", "0"])
+        .expect(0);
     assert_eq!(archived_channels(&arch), ["ia", "ic"], "the user's list");
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
@@ -99,11 +90,11 @@ fn encode_channels_keeps_only_those_wide() {
 
 #[test]
 fn encode_unknown_channel_is_a_usage_error() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
     let arch = s.path("a.parquet");
-    let ran = s.run(&["encode", ps(&src), "--out", ps(&arch), "--channels", "a,zz"]);
+    let ran = s.encode(&src, &arch, &["--channels", "a,zz"]);
     ran.expect(2)
         .ensure(ran.stderr.contains("zz"), "names the channel");
     assert!(!arch.exists());
@@ -111,19 +102,11 @@ fn encode_unknown_channel_is_a_usage_error() {
 
 #[test]
 fn decode_channel_selects_channels() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     wide_source(&src);
     let (arch, dec) = (s.path("a.parquet"), s.path("d.parquet"));
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "0.01",
-    ])
-    .expect(0);
+    s.encode(&src, &arch, &["--budget-rms", "0.01"]).expect(0);
     s.run(&[
         "decode",
         ps(&arch),
@@ -160,21 +143,13 @@ fn decode_channel_selects_channels() {
 
 /// Decoding a time range gives exactly the full decode's rows with from ≤ t < to (README:
 /// `--from` inclusive, `--to` exclusive), and their times are the source's.
-fn check_window(s: &Session, src: &Path, shape: &Shape, from: &str, to: &str, lo: i64, hi: i64) {
+fn check_window(s: &Lab, src: &Path, shape: &Shape, from: &str, to: &str, lo: i64, hi: i64) {
     let (arch, full, part) = (
         s.path("a.parquet"),
         s.path("full.parquet"),
         s.path("part.parquet"),
     );
-    s.run(&[
-        "encode",
-        ps(src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "0.01",
-    ])
-    .expect(0);
+    s.encode(src, &arch, &["--budget-rms", "0.01"]).expect(0);
     s.run(&["decode", ps(&arch), "--out", ps(&full)]).expect(0);
     let ran = s.run(&[
         "decode",
@@ -214,17 +189,17 @@ fn check_window(s: &Session, src: &Path, shape: &Shape, from: &str, to: &str, lo
 
 #[test]
 fn decode_time_range_long_rfc3339_and_ns() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
-    // T0 = 2026-03-01T00:00:00Z; from = T0 + 0.25 s (sample 2500), to = T0 + 0.4 s (ns).
+    // T0 = 2026-05-04T00:00:00Z; from = T0 + 0.25 s (sample 2500), to = T0 + 0.4 s (ns).
     let lo = T0 + 250_000_000;
     let hi = T0 + 400_000_000;
     check_window(
         &s,
         &src,
         &Shape::long(),
-        "2026-03-01T00:00:00.25Z",
+        "2026-05-04T00:00:00.25Z",
         &hi.to_string(),
         lo,
         hi,
@@ -233,7 +208,7 @@ fn decode_time_range_long_rfc3339_and_ns() {
 
 #[test]
 fn decode_time_range_wide() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     wide_source(&src);
     // The wide source stores µs without zone; the range is given as integer ns.
@@ -244,7 +219,7 @@ fn decode_time_range_wide() {
         &src,
         &Shape::wide(),
         &lo.to_string(),
-        "2026-03-01T00:00:00.3456Z",
+        "2026-05-04T00:00:00.3456Z",
         lo / 1000,
         hi / 1000,
     );
@@ -254,20 +229,15 @@ fn decode_time_range_wide() {
 
 #[test]
 fn fundamental_hz_and_cycles_per_segment_are_used() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     wide_source(&src);
     let arch = s.path("a.parquet");
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--fundamental-hz",
-        "50",
-        "--cycles-per-segment",
-        "4",
-    ])
+    s.encode(
+        &src,
+        &arch,
+        &["--fundamental-hz", "50", "--cycles-per-segment", "4"],
+    )
     .expect(0);
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
@@ -300,7 +270,7 @@ fn fundamental_hz_and_cycles_per_segment_are_used() {
 fn estimated_fundamental_gives_cycles_spanning_200_ms() {
     // README: by default K is the fewest cycles spanning 200 ms; at 48 Hz a cycle is
     // 20.8 ms, so K = 10 (9.6 cycles would fall short).
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     wide_source(&src);
     let arch = s.path("a.parquet");
@@ -333,19 +303,11 @@ fn estimated_fundamental_gives_cycles_spanning_200_ms() {
 
 #[test]
 fn fundamental_none_cuts_200_ms_blocks() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
     let arch = s.path("a.parquet");
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--fundamental",
-        "none",
-    ])
-    .expect(0);
+    s.encode(&src, &arch, &["--fundamental", "none"]).expect(0);
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
     for r in archive_rows(&arch) {
@@ -360,11 +322,11 @@ fn fundamental_none_cuts_200_ms_blocks() {
 
 #[test]
 fn json_outputs_parse_and_agree_with_the_files() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
     let (arch, dec) = (s.path("a.parquet"), s.path("d.parquet"));
-    let e = s.run(&["encode", ps(&src), "--out", ps(&arch), "--json"]);
+    let e = s.encode(&src, &arch, &["--json"]);
     let ej = e.expect(0).json();
     let rows = archive_rows(&arch);
     assert_eq!(ej["rows"], (3 * N) as u64, "rows: the source's");
@@ -401,7 +363,7 @@ fn json_outputs_parse_and_agree_with_the_files() {
 
 #[test]
 fn out_equal_to_source_is_refused_and_source_unchanged() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     long_source(&src);
     std::fs::create_dir(s.path("sub")).expect("mkdir");
@@ -427,44 +389,26 @@ fn out_equal_to_source_is_refused_and_source_unchanged() {
 
 #[test]
 fn missing_source_and_bad_flags_are_usage_errors() {
-    let s = Session::new();
+    let s = Lab::new();
     let out = s.path("a.parquet");
     let ran = s.run(&["encode", ps(&s.path("nope.parquet")), "--out", ps(&out)]);
     ran.expect(2)
         .ensure(ran.stderr.contains("nope.parquet"), "names it");
     let src = s.path("src.parquet");
     long_source(&src);
-    s.run(&["encode", ps(&src), "--out", ps(&out), "--budget-rms", "-1"])
+    s.encode(&src, &out, &["--budget-rms", "-1"]).expect(2);
+    s.encode(&src, &out, &["--budget-rms", "0.1", "--budget-rel", "0.1"])
         .expect(2);
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&out),
-        "--budget-rms",
-        "0.1",
-        "--budget-rel",
-        "0.1",
-    ])
-    .expect(2);
     assert!(!out.exists());
 }
 
 // ── verify: damage and a different source ──
 
-fn encoded(s: &Session) -> (std::path::PathBuf, std::path::PathBuf) {
+fn encoded(s: &Lab) -> (std::path::PathBuf, std::path::PathBuf) {
     let src = s.path("src.parquet");
     long_source(&src);
     let arch = s.path("a.parquet");
-    s.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "0.01",
-    ])
-    .expect(0);
+    s.encode(&src, &arch, &["--budget-rms", "0.01"]).expect(0);
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
     (src, arch)
@@ -476,15 +420,9 @@ fn flip(path: &Path, at: usize) {
     std::fs::write(path, b).expect("write");
 }
 
-fn digest_of(arch: &Path) -> std::path::PathBuf {
-    let mut p = arch.as_os_str().to_owned();
-    p.push(".sha256");
-    p.into()
-}
-
 #[test]
 fn verify_fails_on_a_damaged_payload() {
-    let s = Session::new();
+    let s = Lab::new();
     let (src, arch) = encoded(&s);
     let (off, len) = payload_chunk(&arch);
     flip(&arch, (off + len / 2) as usize);
@@ -510,7 +448,7 @@ fn verify_fails_on_a_damaged_payload() {
 
 #[test]
 fn verify_fails_on_a_byte_flipped_mid_file() {
-    let s = Session::new();
+    let s = Lab::new();
     let (src, arch) = encoded(&s);
     let len = std::fs::metadata(&arch).expect("archive").len() as usize;
     flip(&arch, len / 2);
@@ -526,7 +464,7 @@ fn verify_fails_on_a_byte_flipped_mid_file() {
 
 #[test]
 fn verify_and_decode_fail_on_a_truncated_archive() {
-    let s = Session::new();
+    let s = Lab::new();
     let (src, arch) = encoded(&s);
     let b = std::fs::read(&arch).expect("archive");
     std::fs::write(&arch, &b[..b.len() / 2]).expect("truncate");
@@ -542,7 +480,7 @@ fn verify_and_decode_fail_on_a_truncated_archive() {
 
 #[test]
 fn verify_fails_when_the_source_differs() {
-    let s = Session::new();
+    let s = Lab::new();
     let (src, arch) = encoded(&s);
     // The same channels and times with one value of `b` moved by 0.5 (50× the budget).
     let mut cs = long_source(&s.path("unused.parquet"));
@@ -598,7 +536,7 @@ fn verify_fails_when_the_source_differs() {
 
 #[test]
 fn thread_count_does_not_change_bytes() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     // 3 channels × 60 000 samples cut into 1-cycle segments (200 samples at 50 Hz, 10 kHz):
     // 300 segments per channel, more than one block (256 segments) each, so blocks really
@@ -660,7 +598,7 @@ fn assert_same_archive(a: &Path, b: &Path) {
 
 #[test]
 fn row_group_size_and_row_order_do_not_change_archives() {
-    let s = Session::new();
+    let s = Lab::new();
     // 3 × 30 000 rows: more than one 64k read batch.
     let cs: Vec<Chan> = ["x1", "x2", "x3"]
         .iter()
@@ -684,15 +622,7 @@ fn row_group_size_and_row_order_do_not_change_archives() {
         spec.row_group = rg;
         write_long(&src, &cs, spec, &Columns::default());
         let arch = s.path(&format!("{dir}/log.cyclarc.parquet"));
-        s.run(&[
-            "encode",
-            ps(&src),
-            "--out",
-            ps(&arch),
-            "--budget-rms",
-            "0.005",
-        ])
-        .expect(0);
+        s.encode(&src, &arch, &["--budget-rms", "0.005"]).expect(0);
         archives.push(arch);
     }
     let srcs: Vec<String> = archives
@@ -717,8 +647,7 @@ fn row_group_size_and_row_order_do_not_change_archives() {
         spec.row_group = rg;
         write_wide(&src, &wide, spec, "time");
         let arch = s.path(&format!("{dir}/cur.cyclarc.parquet"));
-        s.run(&["encode", ps(&src), "--out", ps(&arch), "--budget-rms", "2"])
-            .expect(0);
+        s.encode(&src, &arch, &["--budget-rms", "2"]).expect(0);
         archives.push(arch);
     }
     assert_same_archive(&archives[0], &archives[1]);

@@ -5,11 +5,9 @@
 //!
 //! Quasi-periodic (heartbeats at a varying rate), with premature beats, artifacts and mains
 //! interference: a hard case for a periodic model, so every bound is checked on it.
-mod common;
-
 use std::path::Path;
 
-use common::*;
+use crate::support::codec::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::fit::fit_samples;
 use cyclarc::codec::{encode_run, RunParams};

@@ -24,11 +24,9 @@
 //! A segment of K whole periods (N = K·M samples) has cyclarc coefficient c_{kK} = √N·ĉ_k
 //! and zero elsewhere. The closed forms are cross-checked against partial aliasing sums of
 //! the handbook coefficients with a bounded tail, then cyclarc is checked against them.
-mod common;
-
 use std::f64::consts::PI;
 
-use common::*;
+use crate::support::codec::*;
 use cyclarc::codec::fit::{error_by_order, fit_segment, SegmentInput};
 use cyclarc::codec::{encode_run, RunParams};
 use cyclarc::model::Basis;

@@ -5,11 +5,10 @@
 //! (Oppenheim & Schafer, *Discrete-Time Signal Processing*), scaled by 1/√N as the crate docs
 //! define. RustFFT's own accuracy tests (`src/test_utils.rs`, `tests/accuracy.rs`) compare
 //! every algorithm with a naive DFT the same way, against a fixed loose threshold; here the
-//! tolerance is the standard FFT error bound c·ε·log₂N·‖x‖ ([`common::fft_rel_bound`],
+//! tolerance is the standard FFT error bound c·ε·log₂N·‖x‖ ([`support::codec::fft_rel_bound`],
 //! Higham) plus the error of the naive oracle itself (bounded below).
-mod common;
-
-use common::*;
+use crate::support::codec::*;
+use crate::support::signals::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::fit::FP_MARGIN_REL;
 use cyclarc::codec::synthesize;

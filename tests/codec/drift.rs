@@ -1,11 +1,10 @@
 //! Speed drift: a machine running up by ±10 % about its mean speed over the run. Tracking
 //! the fundamental (`fundamental = auto`) against a fixed period taken from the start speed
 //! (`FundamentalSetting::Hz(f_start)`), on the same signal and budget.
-mod common;
-
 use std::f64::consts::PI;
 
-use common::*;
+use crate::support::codec::*;
+use crate::support::signals::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::segment::FundamentalSource;
 use cyclarc::codec::{encode_run, RunEncoding, RunParams};

@@ -10,16 +10,15 @@
 //!   exit 3, the file named, nothing under the final name, and stale temporary files are
 //!   removed by the next `run`. Skipped with a note when strace is not installed.
 
-mod harness;
-
 use std::collections::{BTreeMap, BTreeSet};
 use std::path::{Path, PathBuf};
 use std::process::{Child, Command, Stdio};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
+use crate::support::rows::*;
+use crate::support::*;
 use arrow::array::{ArrayRef, Float32Array, Int16Array};
-use harness::*;
 use rand::{Rng, SeedableRng};
 use rand_chacha::ChaCha8Rng;
 
@@ -28,11 +27,11 @@ use rand_chacha::ChaCha8Rng;
 fn source(path: &Path, n: usize, seed: u64) {
     let fs = 25_600.0;
     let mut r = ChaCha8Rng::seed_from_u64(seed);
-    let a: Vec<f32> = wave(n, fs, 29.5, 0.8)
+    let a: Vec<f32> = clean_wave(n, fs, 29.5, 0.8)
         .iter()
         .map(|&v| (v + r.random_range(-0.01..0.01)) as f32)
         .collect();
-    let b: Vec<i16> = wave(n, fs, 60.0, 2000.0)
+    let b: Vec<i16> = clean_wave(n, fs, 60.0, 2000.0)
         .iter()
         .map(|&v| v.round() as i16)
         .collect();
@@ -439,19 +438,6 @@ fn sigterm_stops_encode_and_run_cleanly_with_exit_4() {
 
 // ───────────────────────────── injected I/O faults ─────────────────────────────
 
-fn have_strace() -> bool {
-    let ok = Command::new("strace")
-        .arg("-V")
-        .stdout(Stdio::null())
-        .stderr(Stdio::null())
-        .status()
-        .is_ok_and(|s| s.success());
-    if !ok {
-        eprintln!("NOTE: strace is not installed; the injected I/O fault tests are skipped");
-    }
-    ok
-}
-
 /// Run the binary under strace with fault injection (`inject` are `-e inject=…` specs; the
 /// syscalls they name are traced to /dev/null).
 fn under_strace(lab: &Lab, inject: &[&str], args: &[&str]) -> Ran {
@@ -460,29 +446,26 @@ fn under_strace(lab: &Lab, inject: &[&str], args: &[&str]) -> Ran {
         .map(|s| s.split(':').next().expect("syscall"))
         .collect();
     traced.dedup();
-    let mut cmd = Command::new("strace");
-    cmd.args(["-f", "-qq", "-o", "/dev/null", "-e"])
-        .arg(format!("trace={}", traced.join(",")));
+    let mut strace = vec![
+        "-o".to_string(),
+        "/dev/null".to_string(),
+        "-e".to_string(),
+        format!("trace={}", traced.join(",")),
+    ];
     for i in inject {
-        cmd.arg("-e").arg(format!("inject={i}"));
+        strace.push("-e".to_string());
+        strace.push(format!("inject={i}"));
     }
-    let out = cmd
-        .arg(BIN)
-        .args(args)
-        .current_dir(lab.dir.path())
-        .output()
-        .expect("strace runs");
-    lab.record(
+    lab.run_under_strace(
+        &strace,
+        args,
         format!("strace {} cyclarc {}", inject.join(" "), args.join(" ")),
-        out.status.code(),
-        &out.stdout,
-        &out.stderr,
     )
 }
 
 #[test]
 fn injected_fsync_and_write_failures_publish_nothing() {
-    if !have_strace() {
+    if !have_strace("the injected I/O fault tests are skipped") {
         return;
     }
     let lab = Lab::new();
@@ -571,7 +554,7 @@ fn injected_fsync_and_write_failures_publish_nothing() {
 
 #[test]
 fn a_run_with_io_faults_fails_cleanly_and_the_next_run_cleans_up() {
-    if !have_strace() {
+    if !have_strace("the injected I/O fault tests are skipped") {
         return;
     }
     let lab = Lab::new();
@@ -628,15 +611,7 @@ fn a_reader_that_went_away_does_not_make_the_report_panic() {
     let src = lab.path("s.parquet");
     source(&src, 50_000, 5);
     let arch = lab.path("s.cyclarc.parquet");
-    lab.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "0.01",
-    ])
-    .expect(0);
+    lab.encode(&src, &arch, &["--budget-rms", "0.01"]).expect(0);
     for args in [
         vec!["inspect", ps(&arch), "--json"],
         vec!["inspect", ps(&arch)],

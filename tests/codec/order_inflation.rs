@@ -15,9 +15,8 @@
 //! the slack left under the target holds the quantizer's error without another bin. (On
 //! the 1/n spectra of the closed-form tests, `closed_forms.rs`, the encoder does take
 //! orders above the truncation order when that is cheaper for its step.)
-mod common;
-
-use common::*;
+use crate::support::codec::*;
+use crate::support::signals::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::{encode_run, RunParams};
 use cyclarc::model::Basis;

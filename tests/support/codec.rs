@@ -1,17 +1,15 @@
-//! Helpers shared by the integration tests: run construction and the library's defaults.
-#![allow(dead_code)]
+//! Library-level helpers of the codec tests: run construction, the library's defaults,
+//! decoding an encoded run block by block, and the error bounds the checks are held to.
 
+use super::T0;
 use cyclarc::model::Run;
 use cyclarc::model::SpecialKind;
 use cyclarc::options::{EncodeOptions, Settings};
-use rand::SeedableRng;
-use rand_chacha::ChaCha8Rng;
 
-/// A run from values at sample rate `fs`, starting at an arbitrary fixed epoch.
+/// A run from values at sample rate `fs`, starting at [`T0`].
 pub fn run_of(values: &[f64], fs: f64) -> Run {
-    let t0: i64 = 1_767_225_600_000_000_000; // 2026-01-01T00:00:00Z
     let times = (0..values.len())
-        .map(|i| t0 + (i as f64 * 1e9 / fs).round() as i64)
+        .map(|i| T0 + (i as f64 * 1e9 / fs).round() as i64)
         .collect();
     let specials = values
         .iter()
@@ -41,41 +39,6 @@ pub fn run_of(values: &[f64], fs: f64) -> Run {
 pub fn settings(o: EncodeOptions) -> Settings {
     o.resolve().expect("valid test options")
 }
-
-/// Fixed-seed generator.
-pub fn rng(seed: u64) -> ChaCha8Rng {
-    ChaCha8Rng::seed_from_u64(seed)
-}
-
-/// Clean three-phase motor current, phase `phase` (0, 1, 2): fundamental `f0` Hz at
-/// amplitude 100, 5th/7th/11th/13th harmonics at 4/3/2/1.5 %, Gaussian noise 60 dB below the
-/// fundamental's RMS.
-pub fn three_phase(phase: usize, f0: f64, fs: f64, n: usize, seed: u64) -> Vec<f64> {
-    use rand_distr::{Distribution, Normal};
-    let mut r = rng(seed + phase as u64);
-    let a1 = 100.0;
-    let noise = Normal::new(0.0, a1 / 2f64.sqrt() * 1e-3).expect("valid normal");
-    let shift = -2.0 * std::f64::consts::PI / 3.0 * phase as f64;
-    let harm = [
-        (1.0, 1.0),
-        (5.0, 0.04),
-        (7.0, 0.03),
-        (11.0, 0.02),
-        (13.0, 0.015),
-    ];
-    (0..n)
-        .map(|i| {
-            let t = i as f64 / fs;
-            let mut v = 0.0;
-            for &(h, a) in &harm {
-                v += a1 * a * (2.0 * std::f64::consts::PI * h * f0 * t + h * shift + 0.3 * h).cos();
-            }
-            v + noise.sample(&mut r)
-        })
-        .collect()
-}
-
-// ---- Helpers for the reference tests (decoding, budgets, error bounds, test signals) ----
 
 use cyclarc::codec::fit::FitPlan;
 use cyclarc::codec::frame::{decode_block, SegmentRecord};
@@ -125,17 +88,7 @@ pub fn rms_error(source: &[f64], decoded: &[f64]) -> f64 {
 }
 
 /// RMS over the finite values (computed here, independently of the library).
-pub fn finite_rms_of(x: &[f64]) -> f64 {
-    let (s, n) = x
-        .iter()
-        .filter(|v| v.is_finite())
-        .fold((0.0, 0usize), |(s, n), v| (s + v * v, n + 1));
-    if n == 0 {
-        0.0
-    } else {
-        (s / n as f64).sqrt()
-    }
-}
+pub use super::series::finite_rms as finite_rms_of;
 
 /// The budget the README promises for a segment: absolute ε, or max(fraction · RMS, floor).
 pub fn promised_budget(b: Budget, x: &[f64]) -> f64 {
@@ -200,33 +153,6 @@ pub fn decode_run(enc: &RunEncoding, fft: &dyn Transform) -> Vec<Decoded> {
     }
     assert!(planned.next().is_none(), "every planned segment is encoded");
     out
-}
-
-/// Shaft vibration at `fs`: shaft rate 29.5 Hz with harmonics 1–8, a bearing defect's
-/// decaying impacts at BPFO = 3.585·f_r ringing at 3.1 kHz, and white Gaussian noise of RMS
-/// `noise_rms`. Units g; the shaft components total about 0.5 g RMS.
-pub fn vibration(fs: f64, n: usize, noise_rms: f64, seed: u64) -> Vec<f64> {
-    use rand_distr::{Distribution, Normal};
-    use std::f64::consts::PI;
-    let mut r = rng(seed);
-    let noise = Normal::new(0.0, noise_rms).expect("valid normal");
-    let fr = 29.5;
-    let bpfo = 3.585 * fr;
-    let amps = [0.6, 0.3, 0.15, 0.1, 0.06, 0.04, 0.03, 0.02];
-    (0..n)
-        .map(|i| {
-            let t = i as f64 / fs;
-            let mut v = 0.0;
-            for (h, a) in amps.iter().enumerate() {
-                let h = (h + 1) as f64;
-                v += a * (2.0 * PI * h * fr * t + 0.7 * h).sin();
-            }
-            // Time since the last impact, and the impact's ring-down.
-            let since = t - (t * bpfo).floor() / bpfo;
-            v += 0.4 * (-since * 900.0).exp() * (2.0 * PI * 3100.0 * since).sin();
-            v + noise.sample(&mut r)
-        })
-        .collect()
 }
 
 /// Whether `budget` is `promised` stored as f32 rounded down (README, "Budgets are stored as

@@ -8,10 +8,11 @@
 //!   decoded − source must not exceed the segment's `budget_rms` (the README's contract);
 //! - `budget_rms`: the user's setting (absolute), or rel · the segment's RMS recomputed from
 //!   the source, floored (README, Budgets), stored as f32 rounded down.
-mod cli_util;
-
+use crate::support::archive::*;
+use crate::support::series::*;
+use crate::support::source::*;
+use crate::support::*;
 use arrow::datatypes::TimeUnit;
-use cli_util::*;
 use rand::Rng;
 
 /// Sample rate and fundamental for a time unit: whole-unit steps and 20+ samples per cycle.
@@ -54,7 +55,7 @@ fn chans(vts: &[VType], names: &[&str], t: TimeKind) -> Vec<Chan> {
 const TAGS: [&str; 3] = ["st4.p1.de.accel", "st4.p1.nde.accel", "st4.p2.de.accel"];
 
 fn long_case(vt: VType, names: NameKind, time: TimeKind, budget: &[&str]) {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let mut spec = Spec::new(time);
     spec.names = names;
@@ -70,7 +71,7 @@ fn long_case(vt: VType, names: NameKind, time: TimeKind, budget: &[&str]) {
 }
 
 fn wide_case(vts: &[VType], time: TimeKind, budget: &[&str]) {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let names = ["ia", "ib", "ic", "vib"];
     write_wide(
@@ -169,7 +170,7 @@ fn long_dictionary_with_other_key_or_value_type_keeps_its_type() {
 
 #[test]
 fn long_custom_column_names() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let cols = Columns {
         time: "ts".into(),
@@ -271,7 +272,7 @@ fn awkward_floats(c: &mut Chan) {
 
 #[test]
 fn lossless_long_f32_is_bit_exact() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Nanosecond, Some("UTC"));
     let mut cs = chans(&[VType::F32; 3], &TAGS, t);
@@ -288,7 +289,7 @@ fn lossless_long_f32_is_bit_exact() {
 
 #[test]
 fn lossless_wide_every_type_is_bit_exact() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Microsecond, None);
     let mut cs = chans(
@@ -316,7 +317,7 @@ fn lossless_wide_every_type_is_bit_exact() {
 
 #[test]
 fn absolute_budget_is_stored_as_asked() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Int64Ns;
     write_long(
@@ -336,7 +337,7 @@ fn absolute_budget_is_stored_as_asked() {
 
 #[test]
 fn relative_budget_is_rel_times_segment_rms_with_floor() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let fs = 10_000.0;
     let n = 12_000;
@@ -392,7 +393,7 @@ fn relative_budget_is_rel_times_segment_rms_with_floor() {
 #[test]
 fn default_budget_is_half_a_percent_of_segment_rms() {
     // README: "The default, when no budget is given, is `--budget-rel 0.005` (0.5 %)."
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Microsecond, None);
     write_wide(
@@ -466,7 +467,7 @@ fn assert_source_holds(src: &std::path::Path, shape: &Shape, bits: &[u64]) {
 
 #[test]
 fn specials_long_f32_come_back_exactly() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Nanosecond, Some("UTC"));
     let mut cs = chans(&[VType::F32; 3], &TAGS, t);
@@ -480,7 +481,7 @@ fn specials_long_f32_come_back_exactly() {
 
 #[test]
 fn specials_long_f64_come_back_exactly() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Int64Ns;
     let mut cs = chans(&[VType::F64; 3], &TAGS, t);
@@ -498,7 +499,7 @@ fn specials_long_f64_come_back_exactly() {
 
 #[test]
 fn specials_wide_every_type_come_back_exactly() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Microsecond, Some("UTC"));
     let mut cs = chans(
@@ -523,7 +524,7 @@ fn specials_wide_every_type_come_back_exactly() {
 
 #[test]
 fn hole_splits_runs_and_both_sides_come_back() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let fs = 10_000.0;
     let mut cs: Vec<Chan> = (0..2)
@@ -572,7 +573,7 @@ fn hole_splits_runs_and_both_sides_come_back() {
 
 #[test]
 fn jittered_timestamps_come_back_identical() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let fs = 10_000.0;
     let mut r = rng(99);
@@ -591,7 +592,7 @@ fn jittered_timestamps_come_back_identical() {
 
 #[test]
 fn unsorted_interleaved_long_input_comes_back_sorted_and_exact() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Nanosecond, None);
     let mut spec = Spec::new(t);
@@ -613,7 +614,7 @@ fn unsorted_interleaved_long_input_comes_back_sorted_and_exact() {
 
 #[test]
 fn unsorted_wide_input_comes_back_sorted() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("src.parquet");
     let t = TimeKind::Ts(TimeUnit::Microsecond, None);
     let mut spec = Spec::new(t);
@@ -630,7 +631,7 @@ fn unsorted_wide_input_comes_back_sorted() {
 
 #[test]
 fn duplicate_channel_time_is_refused_naming_file_channel_and_rows() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("dup-source.parquet");
     let t = TimeKind::Int64Ns;
     let mut cs = chans(&[VType::F32; 3], &["a", "b", "c"], t);
@@ -662,7 +663,7 @@ fn duplicate_channel_time_is_refused_naming_file_channel_and_rows() {
 
 #[test]
 fn duplicate_time_in_wide_layout_is_refused() {
-    let s = Session::new();
+    let s = Lab::new();
     let src = s.path("wide-dup.parquet");
     let t = TimeKind::Ts(TimeUnit::Microsecond, None);
     let mut cs = chans(&[VType::F64, VType::F64], &["x", "y"], t);

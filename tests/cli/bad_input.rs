@@ -7,23 +7,18 @@
 //! Exit codes are the README's (0 ok, 1 broken bound or damaged archive, 2 usage or input
 //! error, 3 write failure, 4 interrupted). Sources are invented test signals.
 
-mod harness;
-
 use std::sync::Arc;
 
+use crate::support::rows::*;
+use crate::support::*;
 use arrow::array::{
     ArrayRef, BooleanArray, Float32Array, Float64Array, Int16Array, Int32Array, Int64Array,
     ListArray, StringArray, StructArray, TimestampNanosecondArray, TimestampSecondArray,
 };
 use arrow::datatypes::{DataType, Field, Float64Type, TimeUnit};
-use harness::*;
 
 fn names(n: usize, name: &str) -> Vec<String> {
     vec![name.to_string(); n]
-}
-
-fn f64s(v: &[f64]) -> ArrayRef {
-    Arc::new(Float64Array::from(v.to_vec()))
 }
 
 /// A small valid long-layout source (one channel, 2000 samples at 1 kHz, 50 Hz).
@@ -33,7 +28,7 @@ fn good_source(path: &std::path::Path) {
         path,
         &grid(n, 1000.0),
         &names(n, "a"),
-        f64s(&wave(n, 1000.0, 50.0, 1.0)),
+        f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
     );
 }
 
@@ -190,20 +185,7 @@ fn missing_columns_are_named() {
 /// A long-layout source whose value column is `values`.
 fn long_with_values(path: &std::path::Path, values: ArrayRef) {
     let n = values.len();
-    write_columns(
-        path,
-        vec![
-            time_field("time"),
-            Field::new("channel", DataType::Utf8, false),
-            field("value", values.data_type().clone()),
-        ],
-        vec![
-            time_array(&grid(n, 10.0)),
-            Arc::new(StringArray::from(names(n, "a"))),
-            values,
-        ],
-        1024,
-    );
+    write_long_in_groups(path, &grid(n, 10.0), &names(n, "a"), values, 1024);
 }
 
 fn list_array() -> ArrayRef {
@@ -344,7 +326,7 @@ fn a_wide_file_never_drops_a_column_silently() {
             .expect(0);
         lab.run(&["decode", ps(&arch), "--out", ps(&dec)]).expect(0);
         let pressure = write_only_pressure(&lab);
-        assert_same(&read_table(&pressure), &read_table(&dec), Bound::Exact);
+        assert_same(&read_rows(&pressure), &read_rows(&dec), Bound::Exact);
         clear_round_trip(&lab);
         std::fs::remove_file(pressure).expect("remove");
     }
@@ -376,7 +358,7 @@ fn a_long_file_archives_exactly_time_channel_and_value() {
         vec![
             time_array(&grid(n, 1000.0)),
             Arc::new(StringArray::from(names(n, "a"))),
-            f64s(&wave(n, 1000.0, 50.0, 1.0)),
+            f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
             Arc::new(BooleanArray::from(vec![true; n])),
         ],
         1 << 16,
@@ -565,7 +547,7 @@ fn infinities_and_nan_inside_a_signal_come_back_where_they_were() {
     let lab = Lab::new();
     let src = lab.path("inf.parquet");
     let n = 5000;
-    let mut v = wave(n, 1000.0, 50.0, 2.0);
+    let mut v = clean_wave(n, 1000.0, 50.0, 2.0);
     for i in (0..n).step_by(97) {
         v[i] = f64::INFINITY;
     }
@@ -615,7 +597,7 @@ fn a_constant_round_trips_within_budget() {
 fn magnitudes_near_1e30_and_beyond_round_trip_within_budget() {
     let lab = Lab::new();
     let n = 4000;
-    let v = wave(n, 1000.0, 50.0, 1e30);
+    let v = clean_wave(n, 1000.0, 50.0, 1e30);
     let src = lab.path("big.parquet");
     let v32: Vec<f32> = v.iter().map(|&x| x as f32).collect();
     write_wide(
@@ -632,8 +614,8 @@ fn magnitudes_near_1e30_and_beyond_round_trip_within_budget() {
     round_trip(&lab, &src, &[], Bound::Rel(0.005));
     clear_round_trip(&lab);
     // Far beyond: 1e300 in f64 (squares overflow) and 2e38 in f32 (near f32::MAX, 3.4e38).
-    let huge = wave(n, 1000.0, 50.0, 1e300);
-    let near_max: Vec<f32> = wave(n, 1000.0, 50.0, 2e38)
+    let huge = clean_wave(n, 1000.0, 50.0, 1e300);
+    let near_max: Vec<f32> = clean_wave(n, 1000.0, 50.0, 2e38)
         .iter()
         .map(|&x| x as f32)
         .collect();
@@ -655,8 +637,8 @@ fn subnormal_values_round_trip() {
     let n = 4000;
     // f64 subnormals are below 2.2250738585072014e-308, f32 ones below 1.1754944e-38
     // (IEEE 754 binary64/binary32 smallest normal).
-    let v64: Vec<f64> = wave(n, 1000.0, 50.0, 1e-310);
-    let v32: Vec<f32> = wave(n, 1000.0, 50.0, 1e-40)
+    let v64: Vec<f64> = clean_wave(n, 1000.0, 50.0, 1e-310);
+    let v32: Vec<f32> = clean_wave(n, 1000.0, 50.0, 1e-40)
         .iter()
         .map(|&x| x as f32)
         .collect();
@@ -717,7 +699,7 @@ fn a_given_fundamental_near_nyquist_or_wrong_by_ten_keeps_the_budget() {
         &src,
         &grid(n, fs),
         &names(n, "a"),
-        f64s(&wave(n, fs, 480.0, 1.0)),
+        f64s(&clean_wave(n, fs, 480.0, 1.0)),
     );
     round_trip(
         &lab,
@@ -741,7 +723,7 @@ fn a_given_fundamental_near_nyquist_or_wrong_by_ten_keeps_the_budget() {
         &src,
         &grid(n, fs),
         &names(n, "a"),
-        f64s(&wave(n, fs, 50.0, 1.0)),
+        f64s(&clean_wave(n, fs, 50.0, 1.0)),
     );
     for f in ["500", "5"] {
         round_trip(
@@ -792,7 +774,7 @@ fn non_monotonic_time_is_sorted_and_round_trips() {
     let lab = Lab::new();
     let n = 8000;
     let t = grid(n, 1000.0);
-    let v = wave(n, 1000.0, 50.0, 1.0);
+    let v = clean_wave(n, 1000.0, 50.0, 1.0);
     let mut order: Vec<usize> = (0..n).collect();
     order.shuffle(&mut rand_chacha::ChaCha8Rng::seed_from_u64(5));
     let ts: Vec<i64> = order.iter().map(|&i| t[i]).collect();
@@ -819,7 +801,7 @@ fn jittered_time_comes_back_to_the_nanosecond() {
         &src,
         &t,
         &names(n, "a"),
-        f64s(&wave(n, 10_000.0, 50.0, 1.0)),
+        f64s(&clean_wave(n, 10_000.0, 50.0, 1.0)),
     );
     round_trip(&lab, &src, &["--budget-rms", "0.001"], Bound::Abs(0.001));
 }
@@ -836,7 +818,12 @@ fn huge_holes_between_runs_round_trip() {
     }
     let n = t.len();
     let src = lab.path("holes.parquet");
-    write_long(&src, &t, &names(n, "a"), f64s(&wave(n, 1000.0, 50.0, 1.0)));
+    write_long(
+        &src,
+        &t,
+        &names(n, "a"),
+        f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
+    );
     round_trip(&lab, &src, &["--budget-rms", "0.001"], Bound::Abs(0.001));
 }
 
@@ -862,7 +849,7 @@ fn legacy_int96_timestamps_are_read_as_nanoseconds() {
             v
         })
         .collect();
-    let v = wave(n, 1000.0, 50.0, 1.0);
+    let v = clean_wave(n, 1000.0, 50.0, 1.0);
     let schema = Arc::new(
         parse_message_type("message s { REQUIRED INT96 time; REQUIRED DOUBLE pump; }")
             .expect("schema"),
@@ -883,7 +870,7 @@ fn legacy_int96_timestamps_are_read_as_nanoseconds() {
     rg.close().expect("close");
     w.close().expect("close");
     // The reference reader sees Timestamp(ns) with our instants.
-    let table = read_table(&src);
+    let table = read_rows(&src);
     assert_eq!(
         table.time_type,
         DataType::Timestamp(TimeUnit::Nanosecond, None)
@@ -940,7 +927,7 @@ fn unicode_channel_names_round_trip() {
     let mut nm = Vec::new();
     let mut v = Vec::new();
     for (k, name) in names_u.iter().enumerate() {
-        let w = wave(n, 1000.0, 50.0 + k as f64, 1.0);
+        let w = clean_wave(n, 1000.0, 50.0 + k as f64, 1.0);
         for (i, &ti) in grid(n, 1000.0).iter().enumerate() {
             t.push(ti);
             nm.push(name.to_string());
@@ -981,8 +968,7 @@ fn channel_names_with_path_pieces_never_become_files() {
     let arch = lab.path("work/a.cyclarc.parquet");
     let dec = lab.path("work/decoded.parquet");
     let before = lab.tree();
-    lab.run(&["encode", ps(&src), "--out", ps(&arch), "--budget-rms", "0"])
-        .expect(0);
+    lab.encode(&src, &arch, &["--budget-rms", "0"]).expect(0);
     lab.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
     lab.run(&["decode", ps(&arch), "--out", ps(&dec)]).expect(0);
@@ -1011,8 +997,8 @@ fn channel_names_with_path_pieces_never_become_files() {
         assert!(!p.exists(), "{} appeared", p.display());
     }
     // The names round-trip exactly, one channel each.
-    assert_same(&read_table(&src), &read_table(&dec), Bound::Exact);
-    let tab = read_table(&dec);
+    assert_same(&read_rows(&src), &read_rows(&dec), Bound::Exact);
+    let tab = read_rows(&dec);
     let mut got: Vec<&str> = tab.types.iter().map(|(n, _)| n.as_str()).collect();
     let mut want = evil.to_vec();
     got.sort_unstable();
@@ -1029,7 +1015,7 @@ fn channel_names_with_path_pieces_never_become_files() {
         "../../escaped",
     ])
     .expect(0);
-    assert_eq!(read_table(&one).types.len(), 1);
+    assert_eq!(read_rows(&one).types.len(), 1);
 }
 
 // ───────────────────────────── options ─────────────────────────────
@@ -1073,7 +1059,7 @@ fn a_schema_change_between_files_fails_that_file_only() {
             &lab.path(&format!("in/{name}.parquet")),
             &grid(n, 1000.0),
             &names(n, "a"),
-            f64s(&wave(n, 1000.0, 50.0, 1.0)),
+            f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
         );
     }
     // day2's logger was reconfigured: the value column is now called `reading`.
@@ -1087,7 +1073,7 @@ fn a_schema_change_between_files_fails_that_file_only() {
         vec![
             time_array(&grid(n, 1000.0)),
             Arc::new(StringArray::from(names(n, "a"))),
-            f64s(&wave(n, 1000.0, 50.0, 1.0)),
+            f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
         ],
         1 << 16,
     );

@@ -1,7 +1,6 @@
 //! Deterministic compression ratios on fixed synthetic signals (not timing tests).
-mod common;
-
-use common::*;
+use crate::support::codec::*;
+use crate::support::signals::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::{encode_run, RunParams};
 use cyclarc::model::ValueType;

@@ -6,25 +6,18 @@
 //!
 //! Sources are invented test signals; the reference values are named beside each check.
 
-mod harness;
-
 use std::path::Path;
 use std::process::Command;
 use std::sync::Arc;
 
-use arrow::array::{
-    ArrayRef, AsArray, Float64Array, RecordBatch, TimestampMillisecondArray, UInt32Array,
-};
+use crate::support::rows::*;
+use crate::support::*;
+use arrow::array::{ArrayRef, AsArray, RecordBatch, TimestampMillisecondArray, UInt32Array};
 use arrow::datatypes::{DataType, Field, Float32Type, Int32Type, Schema, TimeUnit};
-use harness::*;
 use parquet::arrow::arrow_reader::ParquetRecordBatchReaderBuilder;
 use parquet::arrow::arrow_writer::ArrowWriterOptions;
 use parquet::arrow::ArrowWriter;
 use parquet::file::metadata::KeyValue;
-
-fn f64s(v: &[f64]) -> ArrayRef {
-    Arc::new(Float64Array::from(v.to_vec()))
-}
 
 /// Two channels `a` and `b`, 4000 samples each at 1 kHz (long layout).
 fn two_channels(path: &Path) {
@@ -34,8 +27,8 @@ fn two_channels(path: &Path) {
     times.extend(&t);
     let mut names = vec!["a".to_string(); n];
     names.extend(vec!["b".to_string(); n]);
-    let mut v = wave(n, 1000.0, 50.0, 1.0);
-    v.extend(wave(n, 1000.0, 25.0, 2.0));
+    let mut v = clean_wave(n, 1000.0, 50.0, 1.0);
+    v.extend(clean_wave(n, 1000.0, 25.0, 2.0));
     write_long(path, &times, &names, f64s(&v));
 }
 
@@ -167,8 +160,8 @@ fn two_wide_columns_with_one_name_are_refused() {
         &src,
         &t,
         vec![
-            ("a", f64s(&wave(n, 1000.0, 50.0, 1.0))),
-            ("a", f64s(&wave(n, 1000.0, 50.0, 3.0))),
+            ("a", f64s(&clean_wave(n, 1000.0, 50.0, 1.0))),
+            ("a", f64s(&clean_wave(n, 1000.0, 50.0, 3.0))),
         ],
     );
     let out = lab.path("dup.cyclarc.parquet");
@@ -186,37 +179,20 @@ fn two_wide_columns_with_one_name_are_refused() {
     );
 }
 
-fn have_strace() -> bool {
-    let ok = Command::new("strace")
-        .arg("-V")
-        .output()
-        .is_ok_and(|o| o.status.success());
-    if !ok {
-        eprintln!("NOTE: strace is not installed; the verify-failure injection is skipped");
-    }
-    ok
-}
-
 /// Opens of `path` by a run of the binary, counted by strace (`-P` keeps only that path).
 fn opens_of(lab: &Lab, path: &Path, inject: Option<usize>, args: &[&str]) -> (Ran, usize) {
     let log = lab.path("strace.log");
-    let mut cmd = Command::new("strace");
-    cmd.args(["-f", "-qq", "-o", ps(&log), "-P", ps(path)])
-        .args(["-e", "trace=open,openat"]);
+    let mut strace: Vec<String> = ["-o", ps(&log), "-P", ps(path), "-e", "trace=open,openat"]
+        .map(String::from)
+        .to_vec();
     if let Some(when) = inject {
-        cmd.args(["-e", &format!("inject=open,openat:error=EIO:when={when}")]);
+        strace.push("-e".to_string());
+        strace.push(format!("inject=open,openat:error=EIO:when={when}"));
     }
-    let out = cmd
-        .arg(BIN)
-        .args(args)
-        .current_dir(lab.dir.path())
-        .output()
-        .expect("strace runs");
-    let ran = lab.record(
+    let ran = lab.run_under_strace(
+        &strace,
+        args,
         format!("strace … cyclarc {}", args.join(" ")),
-        out.status.code(),
-        &out.stdout,
-        &out.stderr,
     );
     let text = std::fs::read_to_string(&log).unwrap_or_default();
     let _ = std::fs::remove_file(&log);
@@ -230,7 +206,7 @@ fn opens_of(lab: &Lab, path: &Path, inject: Option<usize>, args: &[&str]) -> (Ra
 
 #[test]
 fn run_takes_back_an_archive_that_fails_verification() {
-    if !have_strace() {
+    if !have_strace("the verify-failure injection is skipped") {
         return;
     }
     let lab = Lab::new();
@@ -267,21 +243,7 @@ fn run_takes_back_an_archive_that_fails_verification() {
 /// Rewrite an archive keeping the rows `pick` chooses (by index, repeats allowed), with the
 /// same schema and file metadata.
 fn rewrite_rows(arch: &Path, out: &Path, pick: impl Fn(&[(String, i32)]) -> Vec<u32>) {
-    let f = std::fs::File::open(arch).expect("archive");
-    let b = ParquetRecordBatchReaderBuilder::try_new(f).expect("Parquet");
-    let kv = b
-        .metadata()
-        .file_metadata()
-        .key_value_metadata()
-        .cloned()
-        .unwrap_or_default();
-    let schema = b.schema().clone();
-    let batches: Vec<RecordBatch> = b
-        .build()
-        .expect("reader")
-        .map(|r| r.expect("batch"))
-        .collect();
-    let all = arrow::compute::concat_batches(&schema, &batches).expect("concat");
+    let all = read_table(arch).batch;
     let channel = all
         .column_by_name("channel")
         .expect("channel")
@@ -299,14 +261,12 @@ fn rewrite_rows(arch: &Path, out: &Path, pick: impl Fn(&[(String, i32)]) -> Vec<
         .iter()
         .map(|c| arrow::compute::take(c, &idx, None).expect("take"))
         .collect();
-    let kept = RecordBatch::try_new(schema.clone(), cols).expect("batch");
-    let mut w = ArrowWriter::try_new(std::fs::File::create(out).expect("create"), schema, None)
-        .expect("writer");
-    w.write(&kept).expect("write");
-    for e in kv.into_iter().filter(|e| e.key.starts_with("cyclarc.")) {
-        w.append_key_value_metadata(e);
-    }
-    w.close().expect("close");
+    let kept = RecordBatch::try_new(all.schema(), cols).expect("batch");
+    let kv = key_values(arch)
+        .into_iter()
+        .filter(|e| e.key.starts_with("cyclarc."))
+        .collect();
+    write_parquet_with(out, &kept, None, kv);
 }
 
 /// Chooses archive rows (by index) from their (channel, block).
@@ -368,7 +328,7 @@ fn a_missing_repeated_or_dropped_block_is_reported_by_channel_and_number() {
             vec!["block 1", "appears more than once"],
         ),
     ];
-    let clean = read_table(&src);
+    let clean = read_rows(&src);
     for (what, pick, pieces) in cases {
         let bad = lab.path("bad.cyclarc.parquet");
         rewrite_rows(&arch, &bad, pick);
@@ -387,7 +347,7 @@ fn a_missing_repeated_or_dropped_block_is_reported_by_channel_and_number() {
         // Decoding what is intact is explicit, and the holes are reported.
         let s = lab.run(&["decode", ps(&bad), "--out", ps(&dec), "--salvage"]);
         s.expect(1).says(&pieces).says(&["hole"]);
-        let got = read_table(&dec);
+        let got = read_rows(&dec);
         let lost = clean.rows.len() - got.rows.len();
         let source_keys: std::collections::BTreeSet<(&String, i64)> =
             clean.rows.iter().map(|r| (&r.0, r.1)).collect();
@@ -441,24 +401,17 @@ fn an_error_near_1e_300_is_recorded_above_zero_and_not_below_the_truth() {
     let lab = Lab::new();
     let src = lab.path("tiny.parquet");
     let n = 2000;
-    let v: Vec<f64> = wave(n, 1000.0, 50.0, 1.0)
+    let v: Vec<f64> = clean_wave(n, 1000.0, 50.0, 1.0)
         .iter()
         .map(|x| x * 1e-300)
         .collect();
     write_long(&src, &grid(n, 1000.0), &vec!["a".into(); n], f64s(&v));
     let arch = lab.path("tiny.cyclarc.parquet");
-    lab.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&arch),
-        "--budget-rms",
-        "1e-30",
-    ])
-    .expect(0);
+    lab.encode(&src, &arch, &["--budget-rms", "1e-30"])
+        .expect(0);
     let dec = lab.path("dec.parquet");
     lab.run(&["decode", ps(&arch), "--out", ps(&dec)]).expect(0);
-    let d = read_table(&dec);
+    let d = read_rows(&dec);
     let rows = recorded(&arch);
     // The true RMS error of each segment, with the squares taken at a power-of-two scale
     // (2¹⁰⁰⁰, exact) so that they do not underflow: the scaled sum of squares of LAPACK's
@@ -512,7 +465,7 @@ fn zoned_source(path: &Path, unit: TimeUnit, coerced: bool) {
     let t: Vec<i64> = grid(n, fs).iter().map(|x| x / per).collect();
     let zone: Arc<str> = "Europe/Berlin".into();
     let declared = DataType::Timestamp(unit, Some(zone.clone()));
-    let values = f64s(&wave(n, fs, fs / 20.0, 1.0));
+    let values = f64s(&clean_wave(n, fs, fs / 20.0, 1.0));
     let declared_schema = Schema::new(vec![
         Field::new("time", declared.clone(), false),
         Field::new("x", DataType::Float64, true),
@@ -574,7 +527,7 @@ fn a_time_zone_comes_back_for_every_unit() {
         let src = lab.path("zoned.parquet");
         zoned_source(&src, unit, false);
         round_trip(&lab, &src, &["--budget-rms", "0"], Bound::Exact);
-        let dec = read_table(&lab.path("decoded.parquet"));
+        let dec = read_rows(&lab.path("decoded.parquet"));
         assert_eq!(dec.time_type, berlin(unit), "{unit:?}");
         clear_round_trip(&lab);
         std::fs::remove_file(&src).expect("clear");
@@ -585,12 +538,11 @@ fn a_time_zone_comes_back_for_every_unit() {
     zoned_source(&src, TimeUnit::Second, true);
     let arch = lab.path("coerced.cyclarc.parquet");
     let dec = lab.path("coerced-dec.parquet");
-    lab.run(&["encode", ps(&src), "--out", ps(&arch), "--budget-rms", "0"])
-        .expect(0);
+    lab.encode(&src, &arch, &["--budget-rms", "0"]).expect(0);
     lab.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
     lab.run(&["decode", ps(&arch), "--out", ps(&dec)]).expect(0);
-    let (s, d) = (read_table(&src), read_table(&dec));
+    let (s, d) = (read_rows(&src), read_rows(&dec));
     assert_eq!(d.time_type, berlin(TimeUnit::Second));
     assert_eq!(s.rows.len(), d.rows.len());
     for (a, b) in s.rows.iter().zip(&d.rows) {
@@ -676,21 +628,14 @@ fn budgets_beyond_f32_are_refused_not_changed() {
         &["budget-floor", "cannot be recorded"],
     );
     // The largest f32 itself is a budget an archive can hold.
-    lab.run(&[
-        "encode",
-        ps(&src),
-        "--out",
-        ps(&out),
-        "--budget-rms",
-        "3.4028234e38",
-    ])
-    .expect(0);
+    lab.encode(&src, &out, &["--budget-rms", "3.4028234e38"])
+        .expect(0);
     std::fs::remove_file(&out).expect("clear");
     std::fs::remove_file(digest_of(&out)).expect("clear");
     // A relative budget on f64 values near 1e300 resolves beyond f32: refused by channel.
     let huge = lab.path("huge.parquet");
     let n = 2000;
-    let v: Vec<f64> = wave(n, 1000.0, 50.0, 1.0)
+    let v: Vec<f64> = clean_wave(n, 1000.0, 50.0, 1.0)
         .iter()
         .map(|x| x * 1e300)
         .collect();

@@ -1,0 +1,13 @@
+//! Library-level tests of the codec: closed forms, FFT references, drift, ECG, order
+//! inflation, properties and compression ratios, each checked against an outside source
+//! named beside its check.
+#[path = "../support/mod.rs"]
+mod support;
+
+mod closed_forms;
+mod drift;
+mod ecg;
+mod fft_reference;
+mod order_inflation;
+mod properties;
+mod ratio;
