@@ -103,6 +103,26 @@ pub struct RunParams<'a> {
     pub fft: &'a dyn Transform,
 }
 
+impl<'a> RunParams<'a> {
+    /// The parameters of a channel: its budget by the channel rules of `params`, and the
+    /// shared FFT.
+    pub fn new(
+        channel: &'a str,
+        value_type: ValueType,
+        sample_rate: Option<f64>,
+        params: &'a CodecParams,
+    ) -> Self {
+        RunParams {
+            channel,
+            value_type,
+            sample_rate,
+            budget: params.budget_for(channel),
+            params,
+            fft: crate::signal::RealFft::shared(),
+        }
+    }
+}
+
 /// Group planned segments into blocks (≤ `max_segments` and ≤ `max_samples` each, at least
 /// one segment).
 pub fn block_ranges(

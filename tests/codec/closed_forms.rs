@@ -583,14 +583,7 @@ fn thd_from_stored_coefficients_is_the_closed_form_over_the_kept_harmonics() {
                 ..Default::default()
             });
             let run = run_of(&x, fs);
-            let p = RunParams {
-                channel: "w",
-                value_type: ValueType::F64,
-                sample_rate: Some(fs),
-                budget: s.codec.budget,
-                params: &s.codec,
-                fft: RealFft::shared(),
-            };
+            let p = RunParams::new("w", ValueType::F64, Some(fs), &s.codec);
             let enc = encode_run(&run, &p).unwrap();
             let rows: Vec<_> = enc.blocks.iter().flat_map(|b| b.segments.iter()).collect();
             let mut checked = 0;

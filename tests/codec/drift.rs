@@ -53,14 +53,7 @@ fn encode(x: &[f64], fundamental: &str) -> (RunEncoding, usize) {
         ..Default::default()
     });
     let run = run_of(x, FS);
-    let p = RunParams {
-        channel: "shaft",
-        value_type: ValueType::F64,
-        sample_rate: Some(FS),
-        budget: s.codec.budget,
-        params: &s.codec,
-        fft: RealFft::shared(),
-    };
+    let p = RunParams::new("shaft", ValueType::F64, Some(FS), &s.codec);
     let enc = encode_run(&run, &p).unwrap();
     for d in decode_run(&enc, RealFft::shared()) {
         let x = &run.values[d.start..d.start + d.record.len];

@@ -97,14 +97,7 @@ fn ecg_meets_every_budget_and_codes_below_the_time_domain_quantizer() {
     let scalar = ScalarFft::default();
     for (name, o) in cases {
         let s = settings(o);
-        let p = RunParams {
-            channel: "ecg_mlii",
-            value_type: vt,
-            sample_rate: Some(fs),
-            budget: s.codec.budget,
-            params: &s.codec,
-            fft: RealFft::shared(),
-        };
+        let p = RunParams::new("ecg_mlii", vt, Some(fs), &s.codec);
         let enc = encode_run(&run, &p).unwrap();
         let mut bases = std::collections::BTreeMap::<&str, usize>::new();
         for (d, e) in decode_run(&enc, RealFft::shared())

@@ -343,14 +343,7 @@ fn scalar_decoder_meets_every_budget_of_archives_written_with_the_default_planne
     for case in decoder_cases() {
         let s = settings(case.options.clone());
         let run = run_of(&case.values, case.fs);
-        let p = RunParams {
-            channel: "x",
-            value_type: case.value_type,
-            sample_rate: Some(case.fs),
-            budget: s.codec.budget,
-            params: &s.codec,
-            fft: RealFft::shared(),
-        };
+        let p = RunParams::new("x", case.value_type, Some(case.fs), &s.codec);
         let enc = encode_run(&run, &p).unwrap();
         let by_default = decode_run(&enc, RealFft::shared());
         let by_scalar = decode_run(&enc, &scalar);
@@ -442,14 +435,7 @@ fn noisy_vibration_above_its_noise_floor_codes_below_the_time_domain_quantizer()
         ..Default::default()
     });
     let run = run_of(&x, fs);
-    let p = RunParams {
-        channel: "accel",
-        value_type: ValueType::F32,
-        sample_rate: Some(fs),
-        budget: s.codec.budget,
-        params: &s.codec,
-        fft: RealFft::shared(),
-    };
+    let p = RunParams::new("accel", ValueType::F32, Some(fs), &s.codec);
     let run = cyclarc::model::Run {
         values: run.values.iter().map(|&v| v as f32 as f64).collect(),
         ..run

@@ -52,14 +52,7 @@ fn quantized_order_is_never_below_the_truncation_order_on_the_clean_current() {
     for ph in 0..3 {
         let x = three_phase(ph, 50.0, fs, 200_000, 11);
         let run = run_of(&x, fs);
-        let p = RunParams {
-            channel: "i",
-            value_type: ValueType::F64,
-            sample_rate: Some(fs),
-            budget: s.codec.budget,
-            params: &s.codec,
-            fft: RealFft::shared(),
-        };
+        let p = RunParams::new("i", ValueType::F64, Some(fs), &s.codec);
         let enc = encode_run(&run, &p).unwrap();
         ours += enc.payload_bytes();
         theirs += time_domain_bytes(&run, &p);

@@ -230,14 +230,7 @@ fn encode(c: &Case, x: &[f64]) -> (cyclarc::model::Run, cyclarc::options::Settin
 }
 
 fn params<'a>(c: &Case, s: &'a cyclarc::options::Settings) -> RunParams<'a> {
-    RunParams {
-        channel: "p",
-        value_type: c.value_type,
-        sample_rate: Some(c.fs),
-        budget: s.codec.budget,
-        params: &s.codec,
-        fft: RealFft::shared(),
-    }
+    RunParams::new("p", c.value_type, Some(c.fs), &s.codec)
 }
 
 /// Check budgets and least orders of one encoding; returns (segments, Fourier, predicted).

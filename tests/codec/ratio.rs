@@ -5,7 +5,6 @@ use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::{encode_run, RunParams};
 use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
-use cyclarc::signal::RealFft;
 
 #[test]
 fn clean_three_phase_current_codes_8x_smaller_than_time_domain_quantizer() {
@@ -18,14 +17,7 @@ fn clean_three_phase_current_codes_8x_smaller_than_time_domain_quantizer() {
     for ph in 0..3 {
         let x = three_phase(ph, 50.0, fs, 200_000, 11);
         let run = run_of(&x, fs);
-        let p = RunParams {
-            channel: "i",
-            value_type: ValueType::F64,
-            sample_rate: Some(fs),
-            budget: s.codec.budget,
-            params: &s.codec,
-            fft: RealFft::shared(),
-        };
+        let p = RunParams::new("i", ValueType::F64, Some(fs), &s.codec);
         let enc = encode_run(&run, &p).unwrap();
         let orders: Vec<u32> = enc.fits().filter_map(|f| f.order).collect();
         eprintln!(
