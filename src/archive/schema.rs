@@ -213,11 +213,17 @@ pub fn archive_schema() -> Schema {
 }
 
 pub(crate) fn writer_properties() -> WriterProperties {
+    // Statistics only where a query prunes by them (channel, start): per-page statistics
+    // and the page index on every column cost more than a small archive's payload.
     let mut b = WriterProperties::builder()
         .set_compression(Compression::ZSTD(ZstdLevel::try_new(9).unwrap_or_default()))
-        .set_max_row_group_row_count(Some(1 << 20));
+        .set_max_row_group_row_count(Some(1 << 20))
+        .set_statistics_enabled(EnabledStatistics::None);
     for c in COLUMNS {
         let col = || ColumnPath::from(c.name);
+        if matches!(c.name, "channel" | "start") {
+            b = b.set_column_statistics_enabled(col(), EnabledStatistics::Chunk);
+        }
         b = match c.writing {
             ColumnWriting::Dictionary => b,
             ColumnWriting::Delta => b

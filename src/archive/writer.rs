@@ -7,6 +7,7 @@ use std::path::{Path, PathBuf};
 use std::sync::Arc;
 
 use arrow::datatypes::Schema;
+use parquet::arrow::arrow_writer::ArrowWriterOptions;
 use parquet::arrow::ArrowWriter;
 use parquet::file::metadata::KeyValue;
 
@@ -51,7 +52,16 @@ impl ArchiveWriter {
         })?;
         let schema = Arc::new(archive_schema());
         let writer =
-            ArrowWriter::try_new(file, schema.clone(), Some(writer_properties())).map_err(|e| {
+            // No embedded Arrow schema: the Parquet logical types already say everything a
+            // reader needs (UTC nanosecond times, unsigned checksums), and it cost 1.6 kB.
+            ArrowWriter::try_new_with_options(
+                file,
+                schema.clone(),
+                ArrowWriterOptions::new()
+                    .with_properties(writer_properties())
+                    .with_skip_arrow_metadata(true),
+            )
+            .map_err(|e| {
                 Error::WriteParquet {
                     file: out.to_path_buf(),
                     reason: e.to_string(),
