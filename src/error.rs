@@ -171,6 +171,17 @@ pub enum Error {
         /// The resolved budget.
         budget: f64,
     },
+    /// The block compressor failed (an internal failure, e.g. out of memory); nothing was
+    /// published.
+    #[error("{}: channel `{channel}`: compressing a block failed: {reason}", file.display())]
+    Compress {
+        /// The source file.
+        file: PathBuf,
+        /// The channel.
+        channel: String,
+        /// What zstd said.
+        reason: String,
+    },
     /// An output path exists and is not a regular file (a device, FIFO, socket or folder).
     #[error("{}: is a {kind}, not a regular file; choose another output path", file.display())]
     NotARegularFile {
@@ -222,6 +233,15 @@ impl Error {
                 time_ns,
                 budget,
             },
+            Error::Compress {
+                file,
+                channel,
+                reason,
+            } if file.as_os_str().is_empty() => Error::Compress {
+                file: source.to_path_buf(),
+                channel,
+                reason,
+            },
             other => other,
         }
     }
@@ -230,7 +250,7 @@ impl Error {
     pub fn exit_code(&self) -> i32 {
         match self {
             Error::Damaged { .. } | Error::Unverified { .. } => 1,
-            Error::Write { .. } | Error::WriteParquet { .. } => 3,
+            Error::Write { .. } | Error::WriteParquet { .. } | Error::Compress { .. } => 3,
             Error::Interrupted => 4,
             _ => 2,
         }

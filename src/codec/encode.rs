@@ -302,8 +302,9 @@ pub(crate) fn encode_block_of(
         segments: records,
         times,
     };
-    let frame = encode_block(&block, p.params.zstd_level).map_err(|e| Error::InvalidOption {
-        name: "zstd-level".into(),
+    let frame = encode_block(&block, p.params.zstd_level).map_err(|e| Error::Compress {
+        file: std::path::PathBuf::new(),
+        channel: p.channel.to_string(),
         reason: e.to_string(),
     })?;
     Ok(EncodedBlock {
