@@ -5,7 +5,8 @@
 use crate::archive::reader::{block_spans, check_blocks, Archive, Hole};
 use crate::archive::schema::block_checksum;
 use crate::codec::decode::{rebuild_block, DecodedSegment};
-use crate::codec::frame::{decode_block, Block};
+use crate::codec::frame::Block;
+use crate::codec::parse::decode_block;
 use crate::model::{Basis, ChannelSeries};
 use crate::signal::Transform;
 

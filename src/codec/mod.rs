@@ -10,12 +10,14 @@ pub mod estimate;
 pub mod fit;
 pub mod frame;
 pub mod params;
+pub mod parse;
 pub mod quant;
 pub mod segment;
 
 pub use decode::{rebuild_block, synthesize, DecodedSegment, Prev};
 pub use encode::{encode_run, EncodedBlock, RunEncoding, RunParams, SegmentSummary};
 pub use fit::{fit_segment, FitPlan};
-pub use frame::{decode_block, encode_block, Block, FrameError};
+pub use frame::{encode_block, Block, FrameError};
 pub use params::{Budget, CodecParams};
+pub use parse::{decode_block, parse_block};
 pub use segment::{plan_segments, SegmentPlan};

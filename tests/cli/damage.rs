@@ -567,7 +567,7 @@ fn random_damage_never_panics_the_library() {
     let frames: Vec<Vec<u8>> = a.rows.iter().filter_map(|r| r.payload.clone()).collect();
     let raws: Vec<Vec<u8>> = frames
         .iter()
-        .map(|f| cyclarc::codec::frame::decompress(f).expect("clean frame decompresses"))
+        .map(|f| cyclarc::codec::parse::decompress(f).expect("clean frame decompresses"))
         .collect();
     let fft = cyclarc::signal::RealFft::shared();
     let target = lab.path("m.cyclarc.parquet");
@@ -623,7 +623,7 @@ fn random_damage_never_panics_the_library() {
         let k = r.random_range(0..frames.len());
         let f = mutate(&mut r, &frames[k], 0..0);
         frames_tried += 1;
-        if catch_unwind(|| cyclarc::codec::frame::decode_block(&f).is_ok()).is_err() {
+        if catch_unwind(|| cyclarc::codec::parse::decode_block(&f).is_ok()).is_err() {
             escaped.push(format!("frame mutation #{frames_tried} escaped as a panic"));
         }
         // 3. Damaged block bytes behind a valid frame (as a crafted archive with recomputed
@@ -634,7 +634,7 @@ fn random_damage_never_panics_the_library() {
             blocks_tried += 1;
             let res = catch_unwind(AssertUnwindSafe(|| {
                 let frame = cyclarc::codec::frame::compress(&m, 1).expect("compress");
-                match cyclarc::codec::frame::decode_block(&frame) {
+                match cyclarc::codec::parse::decode_block(&frame) {
                     Ok(b) => {
                         let _ = cyclarc::codec::rebuild_block(&b, fft);
                         true

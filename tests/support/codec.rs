@@ -41,7 +41,8 @@ pub fn settings(o: EncodeOptions) -> Settings {
 }
 
 use cyclarc::codec::fit::FitPlan;
-use cyclarc::codec::frame::{decode_block, SegmentRecord};
+use cyclarc::codec::frame::SegmentRecord;
+use cyclarc::codec::parse::decode_block;
 use cyclarc::codec::RunEncoding;
 use cyclarc::options::Budget;
 use cyclarc::signal::Transform;

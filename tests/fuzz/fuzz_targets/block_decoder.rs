@@ -7,10 +7,10 @@ use libfuzzer_sys::fuzz_target;
 
 fuzz_target!(|data: &[u8]| {
     let fft = cyclarc::signal::RealFft::shared();
-    if let Ok(b) = cyclarc::codec::frame::decode_block(data) {
+    if let Ok(b) = cyclarc::codec::parse::decode_block(data) {
         let _ = cyclarc::codec::rebuild_block(&b, fft);
     }
-    if let Ok(b) = cyclarc::codec::frame::parse_block(data) {
+    if let Ok(b) = cyclarc::codec::parse::parse_block(data) {
         let _ = cyclarc::codec::rebuild_block(&b, fft);
     }
 });

@@ -1,0 +1,259 @@
+//! Parse: a zstd frame back into a [`Block`] — decompression with a size limit, then every
+//! section read with bounds checks. Never panics on malformed input: every failure is a
+//! [`FrameError`].
+
+use integer_encoding::VarInt;
+
+use crate::codec::frame::{
+    vt_from_tag, Block, BlockTimes, FrameError, SegmentRecord, BLOCK_FORMAT, MAGIC, MAX_BLOCK_BYTES,
+};
+use crate::model::{Basis, Special, SpecialKind, ValueType};
+
+/// Decompress a frame (checking zstd's content checksum) with a size limit.
+pub fn decompress(frame: &[u8]) -> Result<Vec<u8>, FrameError> {
+    use std::io::Read;
+    let mut dec =
+        zstd::stream::read::Decoder::new(frame).map_err(|e| FrameError::Zstd(e.to_string()))?;
+    let mut out = Vec::new();
+    (&mut dec)
+        .take(MAX_BLOCK_BYTES as u64 + 1)
+        .read_to_end(&mut out)
+        .map_err(|e| FrameError::Zstd(e.to_string()))?;
+    if out.len() > MAX_BLOCK_BYTES {
+        return Err(FrameError::TooLarge);
+    }
+    Ok(out)
+}
+
+/// Decode a compressed frame back into a block.
+pub fn decode_block(frame: &[u8]) -> Result<Block, FrameError> {
+    parse_block(&decompress(frame)?)
+}
+
+struct Cursor<'a> {
+    buf: &'a [u8],
+    pos: usize,
+    what: &'static str,
+}
+
+impl<'a> Cursor<'a> {
+    fn new(buf: &'a [u8], what: &'static str) -> Self {
+        Cursor { buf, pos: 0, what }
+    }
+    fn err(&self, what: &'static str) -> FrameError {
+        FrameError::Malformed {
+            section: self.what,
+            at: self.pos,
+            what,
+        }
+    }
+    fn truncated(&self) -> FrameError {
+        FrameError::Truncated {
+            section: self.what,
+            at: self.pos,
+        }
+    }
+    fn var<V: VarInt>(&mut self) -> Result<V, FrameError> {
+        let (v, n) = V::decode_var(&self.buf[self.pos.min(self.buf.len())..])
+            .ok_or_else(|| self.truncated())?;
+        self.pos += n;
+        Ok(v)
+    }
+    fn byte(&mut self) -> Result<u8, FrameError> {
+        let b = *self.buf.get(self.pos).ok_or_else(|| self.truncated())?;
+        self.pos += 1;
+        Ok(b)
+    }
+    fn bytes(&mut self, n: usize) -> Result<&'a [u8], FrameError> {
+        let end = self.pos.checked_add(n).filter(|&e| e <= self.buf.len());
+        let end = end.ok_or_else(|| self.truncated())?;
+        let s = &self.buf[self.pos..end];
+        self.pos = end;
+        Ok(s)
+    }
+    fn f32(&mut self) -> Result<f32, FrameError> {
+        let b = self.bytes(4)?;
+        Ok(f32::from_le_bytes([b[0], b[1], b[2], b[3]]))
+    }
+    fn f64(&mut self) -> Result<f64, FrameError> {
+        let b = self.bytes(8)?;
+        let mut a = [0u8; 8];
+        a.copy_from_slice(b);
+        Ok(f64::from_le_bytes(a))
+    }
+    fn done(&self) -> Result<(), FrameError> {
+        if self.pos == self.buf.len() {
+            Ok(())
+        } else {
+            Err(self.err("trailing bytes"))
+        }
+    }
+    fn count(&mut self, limit: usize) -> Result<usize, FrameError> {
+        let v: u64 = self.var()?;
+        if v as u128 > limit as u128 {
+            return Err(self.err("count out of range"));
+        }
+        Ok(v as usize)
+    }
+}
+
+/// Parse a decompressed block. Never panics on malformed input.
+pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
+    let mut outer = Cursor::new(bytes, "block");
+    let mut parts = Vec::with_capacity(6);
+    for _ in 0..6 {
+        let n = outer.count(bytes.len())?;
+        parts.push(outer.bytes(n)?);
+    }
+    outer.done()?;
+    let mut h = Cursor::new(parts[0], "header");
+    if h.bytes(2)? != MAGIC {
+        return Err(FrameError::BadMagic);
+    }
+    let fmt = h.byte()?;
+    if fmt != BLOCK_FORMAT {
+        return Err(FrameError::UnsupportedFormat(fmt));
+    }
+    let value_type = vt_from_tag(h.byte()?).ok_or_else(|| h.err("unknown value type"))?;
+    let nseg = h.count(parts[1].len())?;
+    let start_ns: i64 = h.var()?;
+    let step_ns = h.f64()?;
+    h.done()?;
+
+    let mut sc = Cursor::new(parts[1], "segment headers");
+    let mut sp = Cursor::new(parts[3], "specials");
+    let mut cc = Cursor::new(parts[4], "codes");
+    let width = if value_type == ValueType::F32 { 4 } else { 8 };
+    let raw_bytes = parts[5];
+    if raw_bytes.len() % width != 0 {
+        return Err(FrameError::Inconsistent(
+            "raw section length is not a whole number of values",
+        ));
+    }
+    let raw_total = raw_bytes.len() / width;
+    let mut raw_taken = 0usize;
+    let mut segments = Vec::with_capacity(nseg);
+    let mut total = 0usize;
+    for _ in 0..nseg {
+        let tag = sc.byte()?;
+        let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
+        let predicted = tag & 0x10 != 0;
+        let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
+        let cycles = sc.count(u32::MAX as usize)? as u32;
+        let ideal_len = sc.f32()?;
+        let (order, step) = match basis {
+            Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
+            Basis::Samples => (0, sc.f32()?),
+            Basis::Lossless => (0, 0.0),
+        };
+        let nsp = sp.count(len)?;
+        let mut specials = Vec::with_capacity(nsp);
+        let mut idx = 0u64;
+        for i in 0..nsp {
+            let d: u64 = sp.var()?;
+            if i > 0 && d == 0 {
+                return Err(sp.err("special indices not increasing"));
+            }
+            idx = idx.checked_add(d).ok_or_else(|| sp.err("index overflow"))?;
+            if idx >= len as u64 {
+                return Err(sp.err("special index beyond segment"));
+            }
+            let kind = match sp.byte()? {
+                0 => SpecialKind::Null,
+                1 => SpecialKind::Nan(sp.var()?),
+                2 => SpecialKind::PosInf,
+                3 => SpecialKind::NegInf,
+                _ => return Err(sp.err("unknown special kind")),
+            };
+            specials.push(Special {
+                index: idx as u32,
+                kind,
+            });
+        }
+        let mut rec = SegmentRecord {
+            len,
+            ideal_len,
+            cycles,
+            basis,
+            order,
+            step,
+            predicted,
+            codes: Vec::new(),
+            raw: Vec::new(),
+            specials,
+        };
+        let ncodes = rec.expected_codes(value_type);
+        if ncodes > parts[4].len() {
+            return Err(cc.err("more codes than bytes"));
+        }
+        rec.codes = (0..ncodes)
+            .map(|_| cc.var::<i64>())
+            .collect::<Result<_, _>>()?;
+        let nraw = rec.expected_raw(value_type);
+        if raw_taken + nraw > raw_total {
+            return Err(FrameError::Inconsistent("raw section too short"));
+        }
+        rec.raw = (raw_taken..raw_taken + nraw)
+            .map(|i| {
+                (0..width).fold(0u64, |acc, plane| {
+                    let byte = raw_bytes[(width - 1 - plane) * raw_total + i] as u64;
+                    acc | (byte << (8 * plane))
+                })
+            })
+            .collect();
+        raw_taken += nraw;
+        total += len;
+        segments.push(rec);
+    }
+    sc.done()?;
+    sp.done()?;
+    cc.done()?;
+    if raw_taken != raw_total {
+        return Err(FrameError::Inconsistent("raw section too long"));
+    }
+    let mut tc = Cursor::new(parts[2], "timestamps");
+    let residuals = match tc.byte()? {
+        0 => Vec::new(),
+        1 => {
+            let nz = tc.count(total)?;
+            let mut r = vec![0i64; total];
+            let mut i = 0usize;
+            for j in 0..nz {
+                let d = tc.count(total)?;
+                if j > 0 && d == 0 {
+                    return Err(tc.err("indices not increasing"));
+                }
+                i = i
+                    .checked_add(d)
+                    .filter(|&i| i < total)
+                    .ok_or_else(|| tc.err("index beyond block"))?;
+                r[i] = tc.var()?;
+            }
+            r
+        }
+        2 => {
+            if total > parts[2].len() {
+                return Err(tc.err("more residuals than bytes"));
+            }
+            let mut prev = 0i64;
+            (0..total)
+                .map(|_| {
+                    let d: i64 = tc.var()?;
+                    prev = prev.wrapping_add(d);
+                    Ok(prev)
+                })
+                .collect::<Result<_, FrameError>>()?
+        }
+        _ => return Err(tc.err("unknown timestamp mode")),
+    };
+    tc.done()?;
+    Ok(Block {
+        value_type,
+        segments,
+        times: BlockTimes {
+            start_ns,
+            step_ns,
+            residuals,
+        },
+    })
+}
