@@ -12,8 +12,8 @@
 //! jobs                       encode, stream, decode, verify, pipeline: what the commands do
 //! options                    the one options type (flags and pipelines/*.toml), resolved once
 //! source        archive      Parquet sources in and decoded Parquet out | the archive file
-//! codec                      samples ↔ coded blocks: params, segment, fit, quant, frame,
-//!                            encode, decode; never names Parquet, paths or columns
+//! codec                      samples ↔ coded blocks: params, estimate, segment, fit, quant,
+//!                            frame, parse, encode, decode; never Parquet, paths or columns
 //! signal        fsio         FFT and signal maths | durable files, digests, safe Parquet open
 //! model         error        the shared vocabulary | the error type and exit codes
 //! ```
