@@ -6,6 +6,8 @@
 
 use serde::Serialize;
 
+use rustfft::num_complex::Complex;
+
 use crate::signal::{RealFft, Transform};
 
 /// Below this autocorrelation at the estimated period a run counts as not periodic.
@@ -206,15 +208,21 @@ fn refine_by_phase(x: &[f64], fs: f64, f: f64, window: &[f64]) -> Option<f64> {
         return None;
     }
     let w = 2.0 * std::f64::consts::PI * f / fs;
+    // Σ a_i·e^(−iωi) by a rotating phasor, re-anchored from the exact angle every
+    // `REANCHOR` samples so that its rounding cannot build up: no libm call per sample.
+    const REANCHOR: usize = 256;
+    let turn = Complex::from_polar(1.0, -w);
     let dtft = |seg: &[f64]| {
-        let (mut re, mut im) = (0.0, 0.0);
+        let mut acc = Complex::new(0.0, 0.0);
+        let mut z = Complex::new(1.0, 0.0);
         for (i, (v, wi)) in seg.iter().zip(window).enumerate() {
-            let a = v * wi;
-            let ph = w * i as f64;
-            re += a * ph.cos();
-            im -= a * ph.sin();
+            if i % REANCHOR == 0 {
+                z = Complex::from_polar(1.0, -w * i as f64);
+            }
+            acc += z * (v * wi);
+            z *= turn;
         }
-        rustfft::num_complex::Complex::new(re, im)
+        acc
     };
     let za = dtft(&x[..h]);
     let zb = dtft(&x[h..2 * h]);
