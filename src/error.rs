@@ -155,32 +155,13 @@ pub enum Error {
         /// What is wrong.
         reason: String,
     },
-    /// A segment's resolved budget is larger than an archive row can record (f32).
-    #[error(
-        "{}: channel `{channel}`, segment at {time_ns} ns: its budget {budget:e} is larger than \
-         an archive can record ({:e}); give an absolute budget (--budget-rms) or rescale the values",
-        file.display(), f32::MAX
-    )]
-    BudgetRange {
+    /// The codec could not encode a block of the source.
+    #[error("{}: {source}", file.display())]
+    Codec {
         /// The source file.
         file: PathBuf,
-        /// The channel.
-        channel: String,
-        /// The segment's first time (ns since the epoch).
-        time_ns: i64,
-        /// The resolved budget.
-        budget: f64,
-    },
-    /// The block compressor failed (an internal failure, e.g. out of memory); nothing was
-    /// published.
-    #[error("{}: channel `{channel}`: compressing a block failed: {reason}", file.display())]
-    Compress {
-        /// The source file.
-        file: PathBuf,
-        /// The channel.
-        channel: String,
-        /// What zstd said.
-        reason: String,
+        /// What the codec said.
+        source: crate::codec::CodecError,
     },
     /// An output path exists and is not a regular file (a device, FIFO, socket or folder).
     #[error("{}: is a {kind}, not a regular file; choose another output path", file.display())]
@@ -219,38 +200,12 @@ pub enum Error {
 }
 
 impl Error {
-    /// Name the source file in an error raised where only the samples were known.
-    pub fn in_file(self, source: &std::path::Path) -> Error {
-        match self {
-            Error::BudgetRange {
-                file,
-                channel,
-                time_ns,
-                budget,
-            } if file.as_os_str().is_empty() => Error::BudgetRange {
-                file: source.to_path_buf(),
-                channel,
-                time_ns,
-                budget,
-            },
-            Error::Compress {
-                file,
-                channel,
-                reason,
-            } if file.as_os_str().is_empty() => Error::Compress {
-                file: source.to_path_buf(),
-                channel,
-                reason,
-            },
-            other => other,
-        }
-    }
-
     /// The process exit code for this error (documented in the README).
     pub fn exit_code(&self) -> i32 {
         match self {
             Error::Damaged { .. } | Error::Unverified { .. } => 1,
-            Error::Write { .. } | Error::WriteParquet { .. } | Error::Compress { .. } => 3,
+            Error::Codec { source, .. } => source.exit_code(),
+            Error::Write { .. } | Error::WriteParquet { .. } => 3,
             Error::Interrupted => 4,
             _ => 2,
         }

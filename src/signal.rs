@@ -27,25 +27,26 @@ pub fn square_scale(peak: f64) -> f64 {
 }
 
 /// RMS of the values `term(i)` for `i < n` that are `Some`, without overflow or underflow:
-/// the squares are summed at [`square_scale`] of the largest magnitude. 0 when none.
+/// summed as they are, and only when the largest magnitude needs it, summed again at its
+/// [`square_scale`]. 0 when none.
 pub fn rms_of(n: usize, term: impl Fn(usize) -> Option<f64>) -> f64 {
-    let (mut peak, mut count) = (0.0f64, 0usize);
-    for i in 0..n {
-        if let Some(v) = term(i) {
+    let sum_at = |s: f64| {
+        let (mut sum, mut count, mut peak) = (0.0, 0usize, 0.0f64);
+        for v in (0..n).filter_map(&term) {
             peak = peak.max(v.abs());
+            let v = v * s;
+            sum += v * v;
             count += 1;
         }
-    }
+        (sum, count, peak)
+    };
+    let (mut sum, count, peak) = sum_at(1.0);
     if count == 0 {
         return 0.0;
     }
     let s = square_scale(peak);
-    let mut sum = 0.0;
-    for i in 0..n {
-        if let Some(v) = term(i) {
-            let v = v * s;
-            sum += v * v;
-        }
+    if s != 1.0 {
+        sum = sum_at(s).0;
     }
     (sum / count as f64).sqrt() / s
 }

@@ -65,6 +65,15 @@ impl DigestState {
     }
 }
 
+/// What a digest that differs from the archive means, in words.
+pub fn digest_mismatch(path: &Path) -> String {
+    format!(
+        "its SHA-256 differs from the digest recorded in {} (the file changed after it was \
+         written)",
+        digest_path(path).display()
+    )
+}
+
 impl Archive {
     /// Open an archive: the one way in. The digest is checked as `policy` says, then the file
     /// is read; damage in the Parquet structure (the reader's panics included) is
@@ -79,14 +88,7 @@ impl Archive {
             },
         };
         if digest == DigestState::Mismatch && policy == DigestPolicy::Refuse {
-            return Err(damaged(
-                path,
-                format!(
-                    "its SHA-256 differs from the digest recorded in {} (the file changed after \
-                     it was written)",
-                    digest_path(path).display()
-                ),
-            ));
+            return Err(damaged(path, digest_mismatch(path)));
         }
         match read_archive(path) {
             Ok(mut a) => {
@@ -177,12 +179,14 @@ fn read_archive(path: &Path) -> Result<Archive> {
     })
 }
 
-/// Rows of one block, in order, as index ranges into `rows`.
+/// Rows of one block, in order, as index ranges into `rows`. A block starts where the block
+/// number changes or where a row carries a payload (a block's first row does), so a block
+/// repeated right after itself is two spans, not one of twice the rows.
 pub fn block_spans(rows: &[SegmentRow]) -> Vec<std::ops::Range<usize>> {
     let mut out = Vec::new();
     let mut start = 0;
     for i in 1..=rows.len() {
-        if i == rows.len() || rows[i].block != rows[start].block {
+        if i == rows.len() || rows[i].block != rows[start].block || rows[i].payload.is_some() {
             out.push(start..i);
             start = i;
         }
@@ -233,11 +237,7 @@ pub fn check_blocks(archive: &Archive) -> Vec<Hole> {
     for span in block_spans(rows) {
         let first = &rows[span.start];
         let b = first.block;
-        let starts = rows[span.clone()]
-            .iter()
-            .filter(|r| r.payload.is_some())
-            .count();
-        if !seen.insert(b) || starts > 1 {
+        if !seen.insert(b) {
             holes.push(hole(
                 Some(&first.channel),
                 Some(b),

@@ -33,12 +33,10 @@ pub fn unpack_block(
     let (Some(frame), Some(crc)) = (&first.payload, first.checksum) else {
         return Err(format!("block {id}: payload or checksum missing"));
     };
-    if all[1..]
-        .iter()
-        .any(|r| r.payload.is_some() || r.checksum.is_some())
-    {
+    // A payload always starts a span (see `block_spans`); a checksum must not stray either.
+    if all[1..].iter().any(|r| r.checksum.is_some()) {
         return Err(format!(
-            "block {id}: payload on a row that does not start the block"
+            "block {id}: checksum on a row that does not start the block"
         ));
     }
     if block_checksum(frame, all) != crc {
@@ -159,22 +157,9 @@ fn decode_selected(
     }
     let mut spans = block_spans(&archive.rows);
     if salvage {
-        // A block repeated right after itself shares one span: cut spans where a payload
-        // starts a block again. Then read each block number once (its first copy).
-        let rows = &archive.rows;
-        spans = spans
-            .into_iter()
-            .flat_map(|s| {
-                let mut cuts: Vec<usize> = (s.start + 1..s.end)
-                    .filter(|&i| rows[i].payload.is_some())
-                    .collect();
-                cuts.insert(0, s.start);
-                cuts.push(s.end);
-                cuts.windows(2).map(|w| w[0]..w[1]).collect::<Vec<_>>()
-            })
-            .collect();
+        // Read each block number once: its first copy.
         let mut seen = std::collections::BTreeSet::new();
-        spans.retain(|s| seen.insert(rows[s.start].block));
+        spans.retain(|s| seen.insert(archive.rows[s.start].block));
     }
     let wanted = |name: &str| channels.is_empty() || channels.iter().any(|c| c == name);
     // A block starting at or after `to` is outside the range; so is a block whose channel's

@@ -141,8 +141,9 @@ impl ArchiveWriter {
         })
     }
 
-    /// Finish: metadata, close, fsync, rename, fsync the folder, digest. Returns the size.
-    pub fn finish(mut self, meta: &ArchiveMeta) -> Result<u64> {
+    /// Finish: metadata, close, fsync, rename, fsync the folder, digest. Returns the size and
+    /// the SHA-256 (hex) of the published file.
+    pub fn finish(mut self, meta: &ArchiveMeta) -> Result<(u64, String)> {
         self.write_pending()?;
         let mut meta = meta.clone();
         for c in &mut meta.channels {
@@ -204,7 +205,7 @@ impl ArchiveWriter {
             let _ = sync_dir(&self.out);
             return Err(e);
         }
-        Ok(size)
+        Ok((size, digest))
     }
 }
 

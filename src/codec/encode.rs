@@ -13,7 +13,7 @@ use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Specia
 use crate::codec::params::{Budget, CodecParams};
 use crate::codec::quant::error_to_f32;
 use crate::codec::segment::{plan_segments, FundamentalSetting, PlannedSegment, SegmentPlan};
-use crate::error::{Error, Result};
+
 use crate::model::{Basis, Run, ValueType};
 use crate::signal::{amplitude_phase, rms_of, thd, Transform};
 
@@ -22,6 +22,44 @@ pub const DERIVED_HARMONICS: usize = 3;
 
 /// Highest harmonic counted in the THD column (IEEE 519 counts up to the 50th).
 pub const THD_MAX_HARMONIC: usize = 50;
+
+/// Why the codec could not encode a block.
+#[derive(Debug, thiserror::Error)]
+pub enum CodecError {
+    /// A segment's resolved budget is larger than an archive row can record (f32).
+    #[error(
+        "channel `{channel}`, segment at {time_ns} ns: its budget {budget:e} is larger than an \
+         archive can record ({:e}); give an absolute budget (--budget-rms) or rescale the values",
+        f32::MAX
+    )]
+    BudgetRange {
+        /// The channel.
+        channel: String,
+        /// The segment's first time (ns since the epoch).
+        time_ns: i64,
+        /// The resolved budget.
+        budget: f64,
+    },
+    /// The block compressor failed (an internal failure, e.g. out of memory).
+    #[error("channel `{channel}`: compressing a block failed: {reason}")]
+    Compress {
+        /// The channel.
+        channel: String,
+        /// What zstd said.
+        reason: String,
+    },
+}
+
+impl CodecError {
+    /// The exit code: 2 for settings the data cannot meet, 3 for a failed compression
+    /// (nothing was published).
+    pub fn exit_code(&self) -> i32 {
+        match self {
+            CodecError::BudgetRange { .. } => 2,
+            CodecError::Compress { .. } => 3,
+        }
+    }
+}
 
 /// What the codec says about one coded segment: where it starts, what it kept, its budget
 /// and recorded error, and derived figures (RMS, harmonics, THD) for trending.
@@ -157,7 +195,7 @@ pub fn plan_run(run: &Run, p: &RunParams<'_>) -> SegmentPlan {
 }
 
 /// Encode one run: segment, fit and pack; blocks in parallel.
-pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding> {
+pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding, CodecError> {
     let plan = plan_run(run, p);
     let ranges = block_ranges(
         &plan.segments,
@@ -167,7 +205,7 @@ pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding> {
     let blocks = ranges
         .into_par_iter()
         .map(|r| encode_block_of(run, &plan.segments[r], p))
-        .collect::<Result<Vec<_>>>()?;
+        .collect::<Result<Vec<_>, _>>()?;
     Ok(RunEncoding { plan, blocks })
 }
 
@@ -196,7 +234,7 @@ pub(crate) fn encode_block_of(
     run: &Run,
     segs: &[PlannedSegment],
     p: &RunParams<'_>,
-) -> Result<EncodedBlock> {
+) -> Result<EncodedBlock, CodecError> {
     let first = segs[0].start;
     let last = segs[segs.len() - 1].start + segs[segs.len() - 1].len;
     let times = BlockTimes::from_times(&run.times[first..last]);
@@ -211,12 +249,14 @@ pub(crate) fn encode_block_of(
     for s in segs {
         let x = &run.values[s.start..s.start + s.len];
         let rms = finite_rms(x);
-        let budget = p.budget.resolve(rms).map_err(|budget| Error::BudgetRange {
-            file: std::path::PathBuf::new(),
-            channel: p.channel.to_string(),
-            time_ns: run.times[s.start],
-            budget,
-        })?;
+        let budget = p
+            .budget
+            .resolve(rms)
+            .map_err(|budget| CodecError::BudgetRange {
+                channel: p.channel.to_string(),
+                time_ns: run.times[s.start],
+                budget,
+            })?;
         // Tune the previous segment's stored ideal length to the measured phase advance, so
         // that this segment's prediction lines up (the decoder reads it from that segment).
         if let (Some(pv), Some(rec), Some(row)) =
@@ -302,8 +342,7 @@ pub(crate) fn encode_block_of(
         segments: records,
         times,
     };
-    let frame = encode_block(&block, p.params.zstd_level).map_err(|e| Error::Compress {
-        file: std::path::PathBuf::new(),
+    let frame = encode_block(&block, p.params.zstd_level).map_err(|e| CodecError::Compress {
         channel: p.channel.to_string(),
         reason: e.to_string(),
     })?;

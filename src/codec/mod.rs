@@ -15,7 +15,7 @@ pub mod quant;
 pub mod segment;
 
 pub use decode::{rebuild_block, synthesize, DecodedSegment, Prev};
-pub use encode::{encode_run, EncodedBlock, RunEncoding, RunParams, SegmentSummary};
+pub use encode::{encode_run, CodecError, EncodedBlock, RunEncoding, RunParams, SegmentSummary};
 pub use fit::{fit_segment, FitPlan};
 pub use frame::{encode_block, Block, FrameError};
 pub use params::{Budget, CodecParams};

@@ -23,6 +23,8 @@ pub struct EncodeSummary {
     pub source_bytes: u64,
     /// Archive size (bytes).
     pub archive_bytes: u64,
+    /// SHA-256 (hex) of the archive, as recorded beside it.
+    pub archive_sha256: String,
     /// Worst error/budget ratio over lossy segments.
     pub worst_error_over_budget: f64,
     /// Per channel: how the fundamental was found.

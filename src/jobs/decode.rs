@@ -5,9 +5,10 @@ use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
+use crate::archive::reader::digest_mismatch;
 use crate::archive::{decode_channels, decode_salvage, Archive, DigestPolicy, DigestState, Hole};
 use crate::error::{Error, Result};
-use crate::fsio::{check_output, digest_path, refuse_same_file};
+use crate::fsio::{check_output, refuse_same_file};
 use crate::model::ChannelInfo;
 use crate::signal::RealFft;
 use crate::source::write_decoded;
@@ -62,11 +63,7 @@ pub fn decode_file(
         holes.push(Hole {
             channel: None,
             block: None,
-            what: format!(
-                "its SHA-256 differs from the digest recorded in {} (the file changed after it \
-                 was written)",
-                digest_path(archive_path).display()
-            ),
+            what: digest_mismatch(archive_path),
         });
     }
     for c in channels {

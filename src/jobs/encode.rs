@@ -24,10 +24,7 @@ pub fn encode_file(
     check_output(out)?;
     check_output(&digest_path(out))?;
     let source_meta = SourceMeta::of(source)?;
-    let pass = |sort| {
-        encode_pass(source, out, settings, control, &source_meta, sort)
-            .map_err(|e| e.in_file(source))
-    };
+    let pass = |reading| encode_pass(source, out, settings, control, &source_meta, reading);
     match pass(Reading::Stream)? {
         PassOutcome::Done(summary) => Ok(summary),
         PassOutcome::NeedsSort => match pass(Reading::Sort)? {

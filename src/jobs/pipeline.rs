@@ -90,7 +90,8 @@ pub enum SourceOutcome {
         source: PathBuf,
         /// Encode summary.
         summary: EncodeSummary,
-        /// Verify result, when verify-after-write is on.
+        /// `Some(true)` when verify-after-write is on (an archive that fails it is taken
+        /// back and reported as `Failed`), `None` when it is off.
         verified: Option<bool>,
     },
     /// Already archived with the same settings.
@@ -129,10 +130,6 @@ impl RunReport {
             .iter()
             .find_map(|s| match s {
                 SourceOutcome::Failed { code, .. } => Some(*code),
-                SourceOutcome::Archived {
-                    verified: Some(false),
-                    ..
-                } => Some(1),
                 _ => None,
             })
             .unwrap_or(0)
@@ -378,20 +375,17 @@ pub fn run(path: &Path, control: &JobControl) -> Result<RunReport> {
                 } else {
                     None
                 };
-                let (archive_sha, _) = sha256_file(&archive)?;
-                {
-                    manifest.insert(
-                        name.clone(),
-                        ManifestEntry {
-                            source: src.to_string_lossy().into_owned(),
-                            source_sha256: sha,
-                            settings: fingerprint.clone(),
-                            archive: name.clone(),
-                            archive_sha256: archive_sha,
-                        },
-                    );
-                    write_manifest(&out_dir, &manifest)?;
-                }
+                manifest.insert(
+                    name.clone(),
+                    ManifestEntry {
+                        source: src.to_string_lossy().into_owned(),
+                        source_sha256: sha,
+                        settings: fingerprint.clone(),
+                        archive: name.clone(),
+                        archive_sha256: summary.archive_sha256.clone(),
+                    },
+                );
+                write_manifest(&out_dir, &manifest)?;
                 Ok(SourceOutcome::Archived {
                     source: src.clone(),
                     summary,

@@ -14,13 +14,11 @@ use rayon::prelude::*;
 use crate::archive::{ArchiveMeta, ArchiveWriter, ChannelMeta, SourceMeta};
 use crate::codec::encode::{block_ranges, encode_block_of, EncodedBlock, RunParams};
 use crate::codec::fit::FitPlan;
-use crate::codec::params::Budget;
 use crate::codec::segment::{FundamentalSetting, PlannedSegment, Planner};
 use crate::error::{Error, Result};
 use crate::jobs::control::{progress_bar, EncodeSummary, JobControl};
 use crate::model::{ChannelInfo, Run, ValueType};
 use crate::options::Settings;
-use crate::signal::RealFft;
 use crate::source::{
     sort_channel, ChannelAssembler, ChannelSamples, RunEvent, Source, StreamError,
 };
@@ -229,7 +227,6 @@ pub(crate) struct JobChannel {
     name: String,
     value_type: ValueType,
     sample_rate: Option<f64>,
-    budget: Budget,
 }
 
 /// A batch of blocks being fitted on the thread pool while the caller reads on. Dropped
@@ -274,6 +271,7 @@ impl Drop for InFlight {
 /// Hand the waiting blocks to the thread pool without waiting for them. The same blocks as
 /// [`fit_jobs`] (each depends only on its own samples and settings).
 pub(crate) fn start_fit(
+    source: &Path,
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
     settings: &Arc<Settings>,
@@ -286,24 +284,20 @@ pub(crate) fn start_fit(
                 name: c.info.name.clone(),
                 value_type: c.info.value_type,
                 sample_rate: c.asm.sample_rate(),
-                budget: settings.codec.budget_for(&c.info.name),
             };
             (j, jc)
         })
         .collect();
     let settings = Arc::clone(settings);
+    let file = source.to_path_buf();
     std::thread::spawn(move || {
         work.into_par_iter()
             .map(|(j, c)| {
-                let p = RunParams {
-                    channel: &c.name,
-                    value_type: c.value_type,
-                    sample_rate: c.sample_rate,
-                    budget: c.budget,
-                    params: &settings.codec,
-                    fft: RealFft::shared(),
-                };
-                encode_block_of(&j.run, &j.segs, &p)
+                let p = RunParams::new(&c.name, c.value_type, c.sample_rate, &settings.codec);
+                encode_block_of(&j.run, &j.segs, &p).map_err(|e| Error::Codec {
+                    file: file.clone(),
+                    source: e,
+                })
             })
             .collect()
     })
@@ -312,12 +306,13 @@ pub(crate) fn start_fit(
 /// Fit the waiting blocks in parallel and file them in canonical order: [`start_fit`] and
 /// wait for it.
 pub(crate) fn fit_jobs(
+    source: &Path,
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
     settings: &Arc<Settings>,
     ordered: &mut Ordered,
 ) -> Result<()> {
-    InFlight::new(start_fit(jobs, channels, settings), i64::MAX).finish(ordered)
+    InFlight::new(start_fit(source, jobs, channels, settings), i64::MAX).finish(ordered)
 }
 
 /// Write the blocks that start before `watermark` (all when `None`), in order.
@@ -425,7 +420,7 @@ pub(crate) fn encode_pass(
                 .filter_map(|j| j.run.times.first())
                 .min()
                 .copied();
-            let handle = start_fit(&mut jobs, &channels, &shared_settings);
+            let handle = start_fit(source, &mut jobs, &channels, &shared_settings);
             let watermark = channels
                 .iter()
                 .map(|c| c.front_time())
@@ -475,7 +470,7 @@ pub(crate) fn encode_pass(
                     Err(StreamError::Fatal(e)) => return Err(e),
                 }
                 if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
-                    fit_jobs(&mut jobs, &channels, &shared_settings, &mut ordered)?;
+                    fit_jobs(source, &mut jobs, &channels, &shared_settings, &mut ordered)?;
                 }
             }
             channels[ci].finish(ci, settings, &mut jobs);
@@ -485,7 +480,7 @@ pub(crate) fn encode_pass(
         c.finish(ci, settings, &mut jobs);
     }
     crate::stop::check()?;
-    fit_jobs(&mut jobs, &channels, &shared_settings, &mut ordered)?;
+    fit_jobs(source, &mut jobs, &channels, &shared_settings, &mut ordered)?;
     flush(
         &mut ordered,
         None,
@@ -528,7 +523,7 @@ pub(crate) fn encode_pass(
         channel_meta.clone(),
     );
     crate::stop::check()?;
-    let archive_bytes = writer.finish(&meta)?;
+    let (archive_bytes, archive_sha256) = writer.finish(&meta)?;
     Ok(PassOutcome::Done(EncodeSummary {
         source: source.to_path_buf(),
         archive: out.to_path_buf(),
@@ -537,6 +532,7 @@ pub(crate) fn encode_pass(
         segments,
         source_bytes: source_meta.bytes,
         archive_bytes,
+        archive_sha256,
         worst_error_over_budget: worst,
         fundamentals: channel_meta,
     }))
