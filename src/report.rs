@@ -295,15 +295,25 @@ pub fn encode_text(e: &EncodeSummary) -> String {
     let mut notes = String::new();
     for c in &e.fundamentals {
         match (c.fundamental.as_str(), c.fundamental_hz, c.confidence) {
-            ("not_periodic", _, _) => notes.push_str(&format!(
-                "  {}: no periodicity found; cut into fixed {:.0} ms segments\n",
-                c.name,
-                crate::codec::segment::DEFAULT_FALLBACK_SEGMENT_SECONDS * 1e3
-            )),
-            ("estimated", Some(hz), Some(r)) => notes.push_str(&format!(
-                "  {}: fundamental estimated at {hz:.4} Hz (autocorrelation {r:.2} at its period)\n",
-                c.name
-            )),
+            ("not_periodic", _, _) => {
+                notes.push_str(&format!("  {}: cut into fixed-length blocks", c.name));
+                if let Some((hz, r)) = c.runner_up_hz {
+                    notes.push_str(&format!(
+                        " (the best periodic cut, {hz:.4} Hz, coded {r:.2}× their bytes)"
+                    ));
+                }
+                notes.push('\n');
+            }
+            ("estimated", Some(hz), Some(r)) => {
+                notes.push_str(&format!(
+                    "  {}: fundamental estimated at {hz:.4} Hz (autocorrelation {r:.2} at its period)",
+                    c.name
+                ));
+                if let Some((hz2, r2)) = c.runner_up_hz {
+                    notes.push_str(&format!("; runner-up {hz2:.4} Hz at {r2:.2}× the bytes"));
+                }
+                notes.push('\n');
+            }
             ("mixed", _, _) => notes.push_str(&format!(
                 "  {}: some runs periodic, some cut into fixed segments\n",
                 c.name

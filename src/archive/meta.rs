@@ -80,6 +80,10 @@ pub struct ChannelMeta {
     pub confidence: Option<f64>,
     /// Lowest and highest tracked fundamental (Hz).
     pub tracked_hz: Option<(f64, f64)>,
+    /// The candidate fundamental that came second at the start of the first run (Hz), and
+    /// its trial bytes per sample over the winner's (absent when there was none).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub runner_up_hz: Option<(f64, f64)>,
     /// Blocks of the channel in the archive (format 1.1 on; absent in 1.0 archives).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub blocks: Option<u64>,
@@ -105,6 +109,7 @@ impl ChannelMeta {
             fundamental_hz: None,
             confidence: None,
             tracked_hz: None,
+            runner_up_hz: None,
             blocks: None,
         }
     }
@@ -120,6 +125,7 @@ impl ChannelMeta {
             self.fundamental = kind.to_string();
             self.fundamental_hz = plan.fundamental.map(|e| e.hz);
             self.confidence = plan.fundamental.map(|e| e.confidence);
+            self.runner_up_hz = plan.runner_up.map(|(e, r)| (e.hz, r));
         } else if self.fundamental != kind {
             self.fundamental = "mixed".into();
         }

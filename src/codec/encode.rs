@@ -12,7 +12,9 @@ use crate::codec::fit::{fit_segment, refine_ideal, FitPlan, SegmentInput};
 use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Special};
 use crate::codec::params::{Budget, CodecParams};
 use crate::codec::quant::error_to_f32;
-use crate::codec::segment::{plan_segments, FundamentalSetting, PlannedSegment, SegmentPlan};
+use crate::codec::segment::{
+    plan_segments, Arbiter, FundamentalSetting, PlannedSegment, SegmentPlan,
+};
 
 use crate::model::{Basis, Run, ValueType};
 use crate::signal::{amplitude_phase, rms_of, thd, Transform};
@@ -191,7 +193,22 @@ pub fn plan_run(run: &Run, p: &RunParams<'_>) -> SegmentPlan {
     if p.sample_rate.is_none() {
         seg.fundamental = FundamentalSetting::None;
     }
-    plan_segments(&run.values, &seg)
+    plan_segments(&run.values, &seg, Some(p))
+}
+
+/// The trial coder of the planner: the exact bytes of the block frame the encoder would
+/// write for the stretch (times one nanosecond apart, the same for every candidate).
+impl Arbiter for RunParams<'_> {
+    fn trial_bytes(&self, x: &[f64], segments: &[PlannedSegment]) -> Option<usize> {
+        let run = Run {
+            times: (0..x.len() as i64).collect(),
+            values: x.to_vec(),
+            specials: Vec::new(),
+        };
+        encode_block_of(&run, segments, self)
+            .ok()
+            .map(|b| b.frame.len())
+    }
 }
 
 /// Encode one run: segment, fit and pack; blocks in parallel.

@@ -18,7 +18,7 @@
 
 use serde::Serialize;
 
-use crate::codec::estimate::MIN_ESTIMATE_SAMPLES;
+use crate::codec::estimate::{candidates, refine, track, Candidate, MIN_ESTIMATE_SAMPLES};
 pub use crate::codec::estimate::{estimate_fundamental, Estimate, DEFAULT_MIN_CONFIDENCE};
 
 /// Segments span at least this long by default: the harmonic measurement window of
@@ -37,6 +37,29 @@ pub const TRACK_MIN_CYCLES: f64 = 8.0;
 
 /// Tracking windows span at least this long.
 pub const TRACK_MIN_SECONDS: f64 = 0.5;
+
+/// How far (relative) the fundamental may move from one tracking window to the next.
+pub const TRACK_REL: f64 = 0.04;
+
+/// Candidates the trial coder prices at the start of a run.
+pub const FINALISTS: usize = 6;
+
+/// The trial stretch spans this many segments of the slowest candidate (if the run allows).
+pub const TRIAL_SEGMENTS: usize = 3;
+
+/// The trial stretch spans at most this many samples.
+pub const TRIAL_MAX_SAMPLES: usize = 1 << 16;
+
+/// The candidates' spectra look at most this many samples (drift within a longer stretch
+/// would smear the high harmonics); a run that is slower is looked at whole as well.
+pub const ESTIMATE_SAMPLES: usize = 1 << 15;
+
+/// Trial prices within this factor of the cheapest count as equal.
+pub const TIE_MARGIN: f64 = 1.01;
+
+/// Fixed blocks must code this much smaller than the best periodic cut to be chosen over it
+/// (a periodic cut keeps the harmonic columns meaningful).
+pub const PERIODIC_MARGIN: f64 = 0.9;
 
 /// No segment is longer than this many samples.
 pub const MAX_SEGMENT_SAMPLES: usize = 1 << 20;
@@ -116,6 +139,23 @@ pub enum FundamentalSource {
     NotPeriodic,
 }
 
+/// What the planner chose at the start of a run.
+#[derive(Debug, Clone, Copy)]
+struct Choice {
+    estimate: Option<Estimate>,
+    runner_up: Option<(Estimate, f64)>,
+    periodic: bool,
+    /// Segment duration (periodic: the least; else the block length), seconds.
+    seconds: f64,
+}
+
+/// Prices a trial cut for the planner: the coded bytes of `x` cut into `segments` (whole
+/// segments tiling a prefix of `x`, all values finite), or `None` if it cannot be coded.
+pub trait Arbiter {
+    /// Coded bytes of the trial.
+    fn trial_bytes(&self, x: &[f64], segments: &[PlannedSegment]) -> Option<usize>;
+}
+
 /// The segmentation of one run.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct SegmentPlan {
@@ -123,6 +163,9 @@ pub struct SegmentPlan {
     pub segments: Vec<PlannedSegment>,
     /// The first estimate (or the given value) for the run.
     pub fundamental: Option<Estimate>,
+    /// The candidate that came second (estimated runs only), and its trial bytes per sample
+    /// over the winner's (1 when no trial coder arbitrated).
+    pub runner_up: Option<(Estimate, f64)>,
     /// How it was found.
     pub source: FundamentalSource,
     /// Lowest and highest tracked fundamental (Hz).
@@ -146,11 +189,17 @@ pub fn cycles_per_segment(settings: &SegmentSettings, period: f64) -> u32 {
 }
 
 /// Plan the segments of one whole run of samples (non-finite values allowed; they are
-/// ignored by estimation, which uses the longest finite stretch of each window).
-/// Equivalent to feeding the run to a [`Planner`] in any number of pieces.
-pub fn plan_segments(x: &[f64], settings: &SegmentSettings) -> SegmentPlan {
+/// ignored by estimation, which uses the longest finite stretch of each window); `arbiter`
+/// prices the candidate fundamentals by their coded size (without one, the best-scored
+/// candidate that correlates enough wins). Equivalent to feeding the run to a [`Planner`] in
+/// any number of pieces.
+pub fn plan_segments(
+    x: &[f64],
+    settings: &SegmentSettings,
+    arbiter: Option<&dyn Arbiter>,
+) -> SegmentPlan {
     let mut p = Planner::new(*settings);
-    let segments = p.advance(x, 0, true);
+    let segments = p.advance(x, 0, true, arbiter);
     p.into_plan(segments)
 }
 
@@ -200,6 +249,7 @@ pub struct Planner {
     /// Start of the current tracking block.
     block_start: usize,
     estimate: Option<Estimate>,
+    runner_up: Option<(Estimate, f64)>,
     source: FundamentalSource,
     range: Option<(f64, f64)>,
 }
@@ -252,6 +302,7 @@ impl Planner {
             phi: 0.0,
             block_start: 0,
             estimate,
+            runner_up: None,
             source,
             range,
         }
@@ -270,8 +321,15 @@ impl Planner {
     }
 
     /// Feed samples: `x` holds the run's samples from index `base` on; `complete` says the
-    /// run ends after them. Returns the segments that are now final.
-    pub fn advance(&mut self, x: &[f64], base: usize, complete: bool) -> Vec<PlannedSegment> {
+    /// run ends after them; `arbiter` prices the candidates at the start of the run (see
+    /// [`plan_segments`]). Returns the segments that are now final.
+    pub fn advance(
+        &mut self,
+        x: &[f64],
+        base: usize,
+        complete: bool,
+        arbiter: Option<&dyn Arbiter>,
+    ) -> Vec<PlannedSegment> {
         let avail = base + x.len();
         let at = |i: usize| i - base;
         let mut out = Vec::new();
@@ -279,12 +337,15 @@ impl Planner {
             if !complete && avail < GLOBAL_ESTIMATE_SAMPLES {
                 return out;
             }
-            let fs = self.settings.sample_rate;
             let head = longest_finite(&x[at(0)..at(avail.min(GLOBAL_ESTIMATE_SAMPLES))]);
-            let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
-            let global = estimate_fundamental(head, fs, f_min, MAX_AUTO_FUNDAMENTAL_HZ)
-                .filter(|e| e.confidence >= self.settings.min_confidence && fs / e.hz >= 2.0);
-            self.mode = match global {
+            let choice = self.choose(head, arbiter);
+            self.runner_up = choice.runner_up;
+            if choice.periodic {
+                self.settings.min_segment_seconds = choice.seconds;
+            } else {
+                self.settings.fallback_segment_seconds = choice.seconds;
+            }
+            self.mode = match choice.estimate.filter(|_| choice.periodic) {
                 None => Mode::Fixed {
                     len: fixed_len(&self.settings),
                 },
@@ -292,13 +353,7 @@ impl Planner {
                     self.estimate = Some(g);
                     self.source = FundamentalSource::Estimated;
                     self.range = Some((g.hz, g.hz));
-                    Mode::Tracked {
-                        window: ((TRACK_MIN_CYCLES * fs / g.hz).max(TRACK_MIN_SECONDS * fs)
-                            as usize)
-                            .clamp(MIN_ESTIMATE_SAMPLES * 4, GLOBAL_ESTIMATE_SAMPLES),
-                        f_cur: g.hz,
-                        block: None,
-                    }
+                    self.tracked_mode(g.hz)
                 }
             };
         }
@@ -336,14 +391,8 @@ impl Planner {
                         let local = longest_finite(&x[at(a)..at(b)]);
                         let fs = self.settings.sample_rate;
                         if local.len() >= w / 2 {
-                            if let Some(e) =
-                                estimate_fundamental(local, fs, *f_cur / 1.25, *f_cur * 1.25)
-                            {
-                                if e.confidence >= self.settings.min_confidence
-                                    && (e.hz / *f_cur - 1.0).abs() < 0.2
-                                {
-                                    *f_cur = e.hz;
-                                }
+                            if let Some(f) = track(local, fs, *f_cur, TRACK_REL) {
+                                *f_cur = f;
                             }
                         }
                         if let Some((lo, hi)) = &mut self.range {
@@ -380,11 +429,190 @@ impl Planner {
         out
     }
 
+    /// Tracking from a fundamental of `hz`.
+    fn tracked_mode(&self, hz: f64) -> Mode {
+        let fs = self.settings.sample_rate;
+        Mode::Tracked {
+            window: ((TRACK_MIN_CYCLES * fs / hz).max(TRACK_MIN_SECONDS * fs) as usize)
+                .clamp(MIN_ESTIMATE_SAMPLES * 4, GLOBAL_ESTIMATE_SAMPLES),
+            f_cur: hz,
+            block: None,
+        }
+    }
+
+    /// How to cut a run, from its first finite stretch `head`: the candidates
+    /// ([`candidates`] of the first 2¹³ and 2¹⁵ samples and of the whole head; those scoring
+    /// below half the best and correlating below 0.3 are dropped), each refined on a trial
+    /// stretch and priced by `arbiter` as bytes per sample of whole segments. All are priced
+    /// at their own least duration, after sub-multiples of better-scored candidates are
+    /// dropped (they would gain only from longer segments); the winner is then priced at 2,
+    /// 4, 16 and 64 times that duration (unless cycles per segment are given), and fixed
+    /// blocks at 1, 4, 16 and 64 times the fallback length (at the periodic duration when
+    /// cycles are given). Durations that do not fit twice in the trial are not priced. Without an arbiter: the best-scored candidate
+    /// whose autocorrelation reaches the minimum confidence.
+    fn choose(&self, head: &[f64], arbiter: Option<&dyn Arbiter>) -> Choice {
+        let fs = self.settings.sample_rate;
+        let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
+        let mut cands: Vec<Candidate> = Vec::new();
+        for w in [1usize << 13, ESTIMATE_SAMPLES, usize::MAX] {
+            let stretch = &head[..head.len().min(w)];
+            if w != 1 << 13 && stretch.len() <= (1 << 13).min(head.len()) && !cands.is_empty() {
+                continue;
+            }
+            for c in candidates(stretch, fs, f_min, MAX_AUTO_FUNDAMENTAL_HZ, FINALISTS) {
+                if cands.iter().all(|o| (c.hz / o.hz - 1.0).abs() > 0.01) {
+                    cands.push(c);
+                }
+            }
+        }
+        cands.retain(|c| c.hz.is_finite() && c.hz > 0.0 && fs / c.hz >= 2.0);
+        cands.sort_by(|a, b| b.score.total_cmp(&a.score).then(b.hz.total_cmp(&a.hz)));
+        let top = cands.first().map_or(0.0, |c| c.score);
+        cands.retain(|c| c.score >= 0.5 * top || c.confidence >= 0.3);
+        // A sub-multiple of a candidate that scores at least as well adds nothing but longer
+        // segments (which the duration search below offers the winner anyway).
+        let all = cands.clone();
+        cands.retain(|c| {
+            !all.iter().any(|o| {
+                let d = o.hz / c.hz;
+                o.score >= c.score - 0.02 && d >= 1.5 && (d - d.round()).abs() < 0.01 * d
+            })
+        });
+        cands.truncate(FINALISTS);
+        let fixed = fixed_len(&self.settings) as f64 / fs;
+        let Some(arbiter) = arbiter else {
+            let mut ok = cands
+                .into_iter()
+                .filter(|c| c.confidence >= self.settings.min_confidence);
+            let best = ok.next().map(|c| c.estimate());
+            return Choice {
+                periodic: best.is_some(),
+                estimate: best,
+                runner_up: ok.next().map(|c| (c.estimate(), 1.0)),
+                seconds: if best.is_some() {
+                    self.settings.min_segment_seconds
+                } else {
+                    fixed
+                },
+            };
+        };
+        let given_k = self.settings.cycles_per_segment.is_some();
+        let natural = |f: f64| cycles_per_segment(&self.settings, fs / f) as f64 / f;
+        let longest = cands
+            .iter()
+            .map(|c| natural(c.hz))
+            .fold(self.settings.min_segment_seconds.max(fixed), f64::max);
+        let t = ((128.0 * longest * fs).ceil() as usize)
+            .min(TRIAL_MAX_SAMPLES)
+            .min(head.len());
+        let trial = &head[..t];
+        let price = |setting: FundamentalSetting, seconds: f64| -> Option<f64> {
+            let mut s = self.settings;
+            s.fundamental = setting;
+            s.min_segment_seconds = seconds;
+            s.fallback_segment_seconds = seconds;
+            let mut planner = Planner::new(s);
+            // A periodic candidate is tracked from its frequency, as the run would be.
+            if let FundamentalSetting::Hz(hz) = setting {
+                planner.mode = planner.tracked_mode(hz);
+            }
+            // The whole trial as a complete run (tracking windows then need not fit twice),
+            // less its tail: the first segment short of whole cycles, or a short last block.
+            let mut segs = planner.advance(trial, 0, true, None);
+            if setting == FundamentalSetting::None {
+                if segs.len() > 1 && segs[segs.len() - 1].len < segs[0].len {
+                    segs.pop();
+                }
+            } else if let Some(i) = segs.iter().position(|p| p.cycles == 0) {
+                segs.truncate(i);
+            }
+            let covered: usize = segs.iter().map(|p| p.len).sum();
+            if segs.len() < 2 {
+                return None;
+            }
+            let bytes = arbiter.trial_bytes(&trial[..covered], &segs)?;
+            Some(bytes as f64 / covered as f64)
+        };
+        let mut priced: Vec<(Estimate, f64)> = cands
+            .iter()
+            .filter_map(|c| {
+                let hz = refine(trial, fs, c.hz, 0.01).unwrap_or(c.hz);
+                let e = Estimate {
+                    hz,
+                    confidence: c.confidence,
+                };
+                price(
+                    FundamentalSetting::Hz(hz),
+                    self.settings.min_segment_seconds,
+                )
+                .map(|b| (e, b))
+            })
+            .collect();
+        // The best-scored candidate unless another codes clearly smaller (prices within
+        // TIE_MARGIN count as equal: refinement moves each candidate a little).
+        let cheapest = priced.iter().map(|p| p.1).fold(f64::INFINITY, f64::min);
+        if let Some(i) = priced.iter().position(|p| p.1 <= cheapest * TIE_MARGIN) {
+            let first = priced.remove(i);
+            priced.sort_by(|a, b| a.1.total_cmp(&b.1));
+            priced.insert(0, first);
+        }
+        let mut seconds = self.settings.min_segment_seconds;
+        if let Some((best, b)) = priced.first_mut() {
+            if !given_k {
+                let base = natural(best.hz);
+                for m in [2.0, 4.0, 16.0, 64.0] {
+                    if let Some(p) = price(FundamentalSetting::Hz(best.hz), m * base) {
+                        if p < *b {
+                            (*b, seconds) = (p, m * base);
+                        }
+                    }
+                }
+            }
+        }
+        // With cycles per segment given, blocks compete at the periodic segments' duration.
+        let block_seconds: Vec<f64> = match (given_k, priced.first()) {
+            (true, Some((best, _))) => vec![natural(best.hz)],
+            _ => [1.0, 4.0, 16.0, 64.0].iter().map(|m| m * fixed).collect(),
+        };
+        let (none, none_s) = block_seconds
+            .into_iter()
+            .filter_map(|d| price(FundamentalSetting::None, d).map(|b| (b, d)))
+            .min_by(|a, b| a.0.total_cmp(&b.0))
+            .unwrap_or((f64::INFINITY, fixed));
+        // A harmonic of the best-scored candidate that codes smaller cuts the same segments
+        // (its refinement was the sharper one): keep its precision, report the fundamental.
+        if let (Some(first), Some(top)) = (priced.first_mut(), cands.first()) {
+            let d = first.0.hz / top.hz;
+            if d >= 1.5 && (d - d.round()).abs() < 0.01 * d {
+                first.0 = Estimate {
+                    hz: first.0.hz / d.round(),
+                    confidence: top.confidence,
+                };
+            }
+        }
+        let mut it = priced.into_iter();
+        match it.next() {
+            Some((best, b)) if PERIODIC_MARGIN * b <= none => Choice {
+                estimate: Some(best),
+                runner_up: it.next().map(|(e, r)| (e, r / b)),
+                periodic: true,
+                seconds,
+            },
+            best => Choice {
+                estimate: None,
+                runner_up: best.map(|(e, b)| (e, b / none)),
+                periodic: false,
+                seconds: none_s,
+            },
+        }
+    }
+
     /// The plan summary with the segments collected by the caller.
     pub fn into_plan(self, segments: Vec<PlannedSegment>) -> SegmentPlan {
         SegmentPlan {
             segments,
             fundamental: self.estimate,
+            runner_up: self.runner_up,
             source: self.source,
             tracked_range: self.range,
         }
@@ -429,7 +657,7 @@ mod tests {
         let mut s = SegmentSettings::new(25_600.0);
         s.fundamental = FundamentalSetting::Hz(29.5);
         let n = 100_000;
-        let plan = plan_segments(&vec![0.0; n], &s);
+        let plan = plan_segments(&vec![0.0; n], &s, None);
         assert!(tiles(&plan, n));
         let whole: Vec<usize> = plan
             .segments
@@ -455,7 +683,7 @@ mod tests {
             })
             .collect();
         let s = SegmentSettings::new(fs);
-        let whole = plan_segments(&x, &s);
+        let whole = plan_segments(&x, &s, None);
         assert_eq!(whole.source, FundamentalSource::Estimated);
         for piece in [1_000usize, 77_777, 150_000] {
             let mut p = Planner::new(s);
@@ -465,7 +693,7 @@ mod tests {
             while fed < n {
                 fed = (fed + piece).min(n);
                 let keep = p.keep_from().max(base);
-                segs.extend(p.advance(&x[keep..fed], keep, fed == n));
+                segs.extend(p.advance(&x[keep..fed], keep, fed == n, None));
                 base = keep;
             }
             assert_eq!(p.into_plan(segs), whole, "pieces of {piece}");
@@ -477,7 +705,7 @@ mod tests {
         use rand::{Rng, SeedableRng};
         let mut rng = rand_chacha::ChaCha8Rng::seed_from_u64(7);
         let x: Vec<f64> = (0..20_000).map(|_| rng.random::<f64>() - 0.5).collect();
-        let plan = plan_segments(&x, &SegmentSettings::new(10_000.0));
+        let plan = plan_segments(&x, &SegmentSettings::new(10_000.0), None);
         assert_eq!(plan.source, FundamentalSource::NotPeriodic);
         assert!(tiles(&plan, x.len()));
     }

@@ -111,6 +111,12 @@ impl ChannelEncoder {
             match e {
                 RunEvent::Samples(r) => {
                     let rate = self.asm.sample_rate();
+                    let p = RunParams::new(
+                        &self.info.name,
+                        self.info.value_type,
+                        rate,
+                        &settings.codec,
+                    );
                     let run = self.run.get_or_insert_with(|| {
                         let mut seg = settings.codec.segment_settings(rate.unwrap_or(1.0));
                         if rate.is_none() {
@@ -133,11 +139,17 @@ impl ChannelEncoder {
                     run.buf
                         .specials
                         .extend(r.specials.into_iter().map(|(i, k)| (i + off, k)));
-                    advance_run(ci, run, false, settings, jobs);
+                    advance_run(ci, run, false, settings, &p, jobs);
                 }
                 RunEvent::End => {
                     if let Some(mut run) = self.run.take() {
-                        advance_run(ci, &mut run, true, settings, jobs);
+                        let p = RunParams::new(
+                            &self.info.name,
+                            self.info.value_type,
+                            self.asm.sample_rate(),
+                            &settings.codec,
+                        );
+                        advance_run(ci, &mut run, true, settings, &p, jobs);
                         self.meta.runs += 1;
                         self.meta.note_plan(&run.planner.into_plan(Vec::new()));
                     }
@@ -153,9 +165,12 @@ pub(crate) fn advance_run(
     run: &mut RunState,
     complete: bool,
     settings: &Settings,
+    arbiter: &RunParams<'_>,
     jobs: &mut Vec<BlockJob>,
 ) {
-    let segs = run.planner.advance(&run.buf.values, run.base, complete);
+    let segs = run
+        .planner
+        .advance(&run.buf.values, run.base, complete, Some(arbiter));
     run.pending.extend(segs);
     // Group into blocks exactly as `block_ranges` does; the last group waits for more
     // segments unless the run is complete.

@@ -53,6 +53,9 @@ verify = true
 [encode]
 budget_rel = {budget_rel}
 budget_floor = 0.001
+# Whole cycles per segment pinned: otherwise the trial coder may choose longer segments at
+# a wider budget, and the budget comparison below wants the same segments.
+cycles_per_segment = 10
 
 [[encode.budgets]]
 channels = "*.accel"

@@ -8,6 +8,7 @@ mod closed_forms;
 mod drift;
 mod ecg;
 mod fft_reference;
+mod fundamental;
 mod order_inflation;
 mod properties;
 mod ratio;
