@@ -47,6 +47,16 @@
 //! whose error, widened by a floating-point margin (see [`codec::fit`]), stays within the
 //! budget.
 //!
+//! **Trend.** A segment may also carry a polynomial (basis `fourier_trend`): coefficients
+//! β₁ (ramp) and, for degree 2, β₂ (parabola) on the orthonormal discrete polynomials u₁, u₂
+//! of the segment ([`codec::decode::trend_basis`]), quantized with their own step, plus the
+//! Fourier coefficients of what the polynomial leaves, `d = x − Σ β̂_j u_j`. The decoder
+//! outputs `Σ β̂_j u_j + (inverse DFT of the kept bins of d)`, so the error is d's Fourier
+//! error and every order's error is exact by Parseval on d, as above. The encoder chooses β
+//! as the least squares of the polynomial columns projected on the bins it drops (the
+//! columns orthogonalized against the kept Fourier terms), and keeps the polynomial only
+//! where it codes smaller.
+//!
 //! **Budgets.** Per segment, in the channel's units: absolute (`--budget-rms`), or relative to
 //! the segment's own RMS with an absolute floor (`--budget-rel`, `--budget-floor`). A budget
 //! of 0 means lossless. Resolved budgets are stored as f32, rounded down; an absolute budget

@@ -71,6 +71,21 @@ pub enum Basis {
     Samples,
     /// Values stored bit-exact.
     Lossless,
+    /// A low-order polynomial (ramp, or ramp and parabola) plus quantized Fourier
+    /// coefficients of bins 0 … order−1 of what the polynomial leaves.
+    #[serde(rename = "fourier_trend")]
+    Trend,
+}
+
+/// The polynomial part of a [`Basis::Trend`] segment: its degree (1: ramp; 2: ramp and
+/// parabola) and the quantizer step of its coefficients on the orthonormal discrete
+/// polynomials (see [`crate::codec::decode::trend_shape`]).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Trend {
+    /// Degree, 1 or 2.
+    pub degree: u8,
+    /// Quantizer step of the coefficients (stored exactly as f32).
+    pub step: f32,
 }
 
 impl Basis {
@@ -80,6 +95,7 @@ impl Basis {
             Basis::Fourier => "fourier",
             Basis::Samples => "samples",
             Basis::Lossless => "lossless",
+            Basis::Trend => "fourier_trend",
         }
     }
 
@@ -89,6 +105,7 @@ impl Basis {
             "fourier" => Some(Basis::Fourier),
             "samples" => Some(Basis::Samples),
             "lossless" => Some(Basis::Lossless),
+            "fourier_trend" => Some(Basis::Trend),
             _ => None,
         }
     }
@@ -99,6 +116,7 @@ impl Basis {
             Basis::Fourier => 0,
             Basis::Samples => 1,
             Basis::Lossless => 2,
+            Basis::Trend => 3,
         }
     }
 
@@ -108,6 +126,7 @@ impl Basis {
             0 => Some(Basis::Fourier),
             1 => Some(Basis::Samples),
             2 => Some(Basis::Lossless),
+            3 => Some(Basis::Trend),
             _ => None,
         }
     }

@@ -100,7 +100,12 @@ pub fn inspect(a: &Archive) -> Inspect {
         let mut orders: Vec<u32> = rows.iter().filter_map(|r| r.seg.order).collect();
         orders.sort_unstable();
         let mut basis = BTreeMap::new();
-        for b in [Basis::Fourier, Basis::Samples, Basis::Lossless] {
+        for b in [
+            Basis::Fourier,
+            Basis::Trend,
+            Basis::Samples,
+            Basis::Lossless,
+        ] {
             let n = rows.iter().filter(|r| r.seg.basis == b).count();
             if n > 0 {
                 basis.insert(b.name().to_string(), n);

@@ -69,7 +69,7 @@ pub fn unpack_block(
     let mut offset = 0usize;
     for (r, s) in all.iter().zip(&block.segments) {
         let order_ok = match s.basis {
-            Basis::Fourier => r.seg.order == Some(s.order),
+            Basis::Fourier | Basis::Trend => r.seg.order == Some(s.order),
             _ => r.seg.order.is_none(),
         };
         if r.channel != first.channel

@@ -39,6 +39,66 @@ pub fn synthesize(
     (y, out)
 }
 
+/// Synthesize a Fourier-plus-trend segment: the inverse transform of the kept bins plus the
+/// polynomial `shape` ([`trend_shape`]), then rounding to the output type. Returns
+/// (unrounded, rounded).
+pub fn synthesize_trend(
+    coeffs: &[C64],
+    shape: &[f64],
+    value_type: ValueType,
+    fft: &dyn Transform,
+) -> (Vec<f64>, Vec<f64>) {
+    let n = shape.len();
+    let (mut y, _) = synthesize(coeffs, n, ValueType::F64, fft);
+    for (v, s) in y.iter_mut().zip(shape) {
+        *v += s;
+    }
+    let out = y.iter().map(|&v| value_type.round(v)).collect();
+    (y, out)
+}
+
+/// The orthonormal discrete polynomials on samples m = 0 … n−1 (the discrete Chebyshev, or
+/// Gram, polynomials): with t = m − (n−1)/2,
+/// p₁ = t and p₂ = t² − (n²−1)/12, whose squares sum to n(n²−1)/12 and
+/// n(n²−1)(n²−4)/180; each is divided by the square root of its sum. Both are orthogonal to
+/// a constant and to each other. `None` when `n` is too short for the degree.
+pub fn trend_basis(n: usize, degree: usize) -> Option<Vec<Vec<f64>>> {
+    if n < degree + 1 || !(1..=2).contains(&degree) {
+        return None;
+    }
+    let nf = n as f64;
+    let c = (nf - 1.0) / 2.0;
+    let s1 = (nf * (nf * nf - 1.0) / 12.0).sqrt();
+    let mut out = vec![(0..n).map(|m| (m as f64 - c) / s1).collect::<Vec<f64>>()];
+    if degree == 2 {
+        let s2 = (nf * (nf * nf - 1.0) * (nf * nf - 4.0) / 180.0).sqrt();
+        let k = (nf * nf - 1.0) / 12.0;
+        out.push(
+            (0..n)
+                .map(|m| {
+                    let t = m as f64 - c;
+                    (t * t - k) / s2
+                })
+                .collect(),
+        );
+    }
+    Some(out)
+}
+
+/// The polynomial part of a trend segment: Σ_j codes_j·step·u_j with u_j from
+/// [`trend_basis`]. `None` when the segment is too short for the degree.
+pub fn trend_shape(codes: &[i64], step: f64, n: usize) -> Option<Vec<f64>> {
+    let basis = trend_basis(n, codes.len())?;
+    let mut out = vec![0.0; n];
+    for (&q, u) in codes.iter().zip(&basis) {
+        let b = q as f64 * step;
+        for (o, &v) in out.iter_mut().zip(u) {
+            *o += b * v;
+        }
+    }
+    Some(out)
+}
+
 /// One rebuilt segment.
 #[derive(Debug, Clone, PartialEq)]
 pub struct DecodedSegment {
@@ -69,9 +129,20 @@ pub fn rebuild_block(
     for (j, seg) in block.segments.iter().enumerate() {
         let (values, coeffs) = match seg.basis {
             Basis::Fourier => {
-                let coeffs = fourier_coeffs(seg, prev.as_ref())
+                let coeffs = fourier_coeffs(seg, &seg.codes, prev.as_ref())
                     .map_err(|what| FrameError::Segment { index: j, what })?;
                 let (_, values) = synthesize(&coeffs, seg.len, block.value_type, fft);
+                (values, coeffs)
+            }
+            Basis::Trend => {
+                let bad = |what| FrameError::Segment { index: j, what };
+                let t = seg.trend.ok_or(bad("trend segment without its trend"))?;
+                let d = (t.degree as usize).min(seg.codes.len());
+                let (tc, fc) = seg.codes.split_at(d);
+                let coeffs = fourier_coeffs(seg, fc, prev.as_ref()).map_err(bad)?;
+                let shape = trend_shape(tc, t.step as f64, seg.len)
+                    .ok_or(bad("trend on a segment too short for its degree"))?;
+                let (_, values) = synthesize_trend(&coeffs, &shape, block.value_type, fft);
                 (values, coeffs)
             }
             Basis::Samples => {
@@ -89,7 +160,7 @@ pub fn rebuild_block(
             }
             Basis::Lossless => (lossless_values(seg, block.value_type), Vec::new()),
         };
-        prev = (seg.basis == Basis::Fourier).then(|| Prev {
+        prev = matches!(seg.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
             coeffs: coeffs.clone(),
             n: seg.len,
             ideal: seg.ideal_len as f64,
@@ -122,8 +193,13 @@ pub fn special_value(kind: SpecialKind, value_type: ValueType) -> f64 {
     }
 }
 
-/// Reconstruct the kept Fourier coefficients of a segment from its codes and prediction.
-pub fn fourier_coeffs(seg: &SegmentRecord, prev: Option<&Prev>) -> Result<Vec<C64>, &'static str> {
+/// Reconstruct the kept Fourier coefficients of a segment from its Fourier codes and
+/// prediction.
+pub fn fourier_coeffs(
+    seg: &SegmentRecord,
+    codes: &[i64],
+    prev: Option<&Prev>,
+) -> Result<Vec<C64>, &'static str> {
     let n = seg.len;
     let l = seg.order as usize;
     let pred = match (seg.predicted, prev) {
@@ -132,7 +208,7 @@ pub fn fourier_coeffs(seg: &SegmentRecord, prev: Option<&Prev>) -> Result<Vec<C6
         (false, _) => vec![C64::new(0.0, 0.0); l],
     };
     let step = seg.step as f64;
-    let mut codes = seg.codes.iter();
+    let mut codes = codes.iter();
     let mut out = Vec::with_capacity(l);
     for (k, &p) in pred.iter().enumerate() {
         let qr = *codes.next().ok_or("too few codes")?;

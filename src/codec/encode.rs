@@ -300,7 +300,7 @@ pub(crate) fn encode_block_of(
             prev.as_ref(),
             p.fft,
         );
-        prev = (fitted.plan.basis == Basis::Fourier).then(|| Prev {
+        prev = matches!(fitted.plan.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
             coeffs: fitted.coeffs.clone(),
             n: s.len,
             ideal: s.ideal_len as f64,
@@ -351,6 +351,7 @@ pub(crate) fn encode_block_of(
             codes: fitted.codes,
             raw: fitted.raw,
             specials: seg_specials,
+            trend: fitted.plan.trend,
         });
         fits.push(fitted.plan);
     }

@@ -18,9 +18,9 @@
 
 use serde::Serialize;
 
-use crate::codec::decode::{synthesize, Prev};
+use crate::codec::decode::{synthesize, synthesize_trend, trend_basis, Prev};
 use crate::codec::quant::{cost_bits, delta_codes, dequantize_bin, quantize_bin};
-use crate::model::{Basis, ValueType};
+use crate::model::{Basis, Trend, ValueType};
 use crate::signal::{
     fill_non_finite, half_len, is_real_bin, predict, square_scale, weight, Transform, C64,
 };
@@ -60,6 +60,8 @@ pub struct FitPlan {
     pub bound_rms: f64,
     /// Estimated coded size in bits (the proxy the choice minimized).
     pub cost_bits: f64,
+    /// The polynomial part ([`Basis::Trend`] only).
+    pub trend: Option<Trend>,
 }
 
 /// A fitted segment: the plan, the integer codes, and the decoder's reconstruction.
@@ -322,11 +324,167 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
             };
         }
     }
-    if let Some(f) = fit_fourier(
+    let fourier = fit_fourier(
         values, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, fft,
-    ) {
+    );
+    let fourier_order = fourier
+        .as_ref()
+        .and_then(|f| f.plan.order)
+        .map(|o| o as usize);
+    if let Some(f) = fourier {
         if f.plan.cost_bits < best.plan.cost_bits {
             best = f;
+        }
+    }
+    if jumps(&filled, budget_rms) {
+        let trend = TrendInput {
+            spectrum: &spectrum,
+            n_finite,
+            round_mse,
+            fourier_order,
+        };
+        if let Some(f) = fit_trend(values, value_type, budget_rms, &trend, prev, fft) {
+            if f.plan.cost_bits < best.plan.cost_bits {
+                best = f;
+            }
+        }
+    }
+    best
+}
+
+/// Whether the periodic extension of a segment jumps: its first sample against its last
+/// extrapolated by one step differs by more than [`TREND_JUMP_BUDGETS`] budgets (a ramp's
+/// sawtooth, which the trend basis removes; a whole-cycle segment joins smoothly).
+fn jumps(x: &[f64], budget_rms: f64) -> bool {
+    let n = x.len();
+    n >= MIN_TREND_SAMPLES
+        && (x[0] - (2.0 * x[n - 1] - x[n - 2])).abs() > TREND_JUMP_BUDGETS * budget_rms
+}
+
+/// Fewest samples a trend segment has.
+pub const MIN_TREND_SAMPLES: usize = 16;
+
+/// The jump (in budgets) above which the trend basis is tried.
+pub const TREND_JUMP_BUDGETS: f64 = 4.0;
+
+/// What the trend fit shares with the plain Fourier fit of the same segment.
+struct TrendInput<'a> {
+    spectrum: &'a [C64],
+    n_finite: usize,
+    round_mse: f64,
+    /// The plain Fourier fit's order, where the polynomial is first fitted.
+    fourier_order: Option<usize>,
+}
+
+/// Coefficients β of the polynomial columns `u` (spectra `us`) that minimize the energy
+/// left outside bins 0 … l−1: the least squares of the columns projected on the dropped
+/// bins, G·β = b with G_ij = Σ_{k≥l} w_k Re(conj(U_ik)·U_jk) and b_i the same with the
+/// segment's spectrum `c` (Gram–Schmidt of the extra columns against the kept Fourier
+/// terms, in closed form for one or two columns). `None` when the system is singular.
+fn projected_ls(c: &[C64], us: &[Vec<C64>], l: usize, n: usize) -> Option<Vec<f64>> {
+    let dot = |a: &[C64], b: &[C64]| -> f64 {
+        (l..a.len().min(b.len()))
+            .map(|k| weight(k, n) * (a[k].re * b[k].re + a[k].im * b[k].im))
+            .sum()
+    };
+    match us {
+        [u] => {
+            let g = dot(u, u);
+            (g > 1e-12).then(|| vec![dot(u, c) / g])
+        }
+        [u, v] => {
+            let (a, b, d) = (dot(u, u), dot(u, v), dot(v, v));
+            let det = a * d - b * b;
+            if !(det > 1e-12 * a.max(d).max(1e-300).powi(2)) {
+                return None;
+            }
+            let (r1, r2) = (dot(u, c), dot(v, c));
+            Some(vec![(d * r1 - b * r2) / det, (a * r2 - b * r1) / det])
+        }
+        _ => None,
+    }
+}
+
+/// The Fourier-plus-trend fit: for degree 1 (ramp) and 2 (ramp and parabola), the
+/// polynomial that leaves the least energy outside the plain fit's order (then again at the
+/// order that fit found), quantized on the orthonormal discrete polynomials with a step of
+/// ε·√N/8 (each coefficient's rounding costs at most 1/256 of the budget's energy); what it
+/// leaves is coded as Fourier coefficients, exactly as [`fit_fourier`] codes a segment. The
+/// error is the error of that output (Parseval on the residual, then measured after
+/// synthesis), so the bound holds as for any Fourier segment.
+fn fit_trend(
+    values: &[f64],
+    value_type: ValueType,
+    budget_rms: f64,
+    t: &TrendInput<'_>,
+    prev: Option<&Prev>,
+    fft: &dyn Transform,
+) -> Option<Fitted> {
+    let n = values.len();
+    let m = t.spectrum.len();
+    let step = (budget_rms * (t.n_finite as f64).sqrt() / 8.0) as f32;
+    if !(step > 0.0 && step.is_finite()) {
+        return None;
+    }
+    let mut best: Option<Fitted> = None;
+    for degree in 1..=2usize {
+        let Some(basis) = trend_basis(n, degree) else {
+            continue;
+        };
+        let us: Vec<Vec<C64>> = basis.iter().map(|u| fft.forward(u)).collect();
+        let mut l = t.fourier_order.unwrap_or(m / 2).clamp(1, m);
+        for _ in 0..2 {
+            let Some(beta) = projected_ls(t.spectrum, &us, l, n) else {
+                break;
+            };
+            let q: Vec<i64> = beta
+                .iter()
+                .map(|&b| (b / step as f64).round() as i64)
+                .collect();
+            let mut rest = t.spectrum.to_vec();
+            let mut shape = vec![0.0; n];
+            for ((&qj, u), uj) in q.iter().zip(&us).zip(&basis) {
+                let b = qj as f64 * step as f64;
+                for (r, &uk) in rest.iter_mut().zip(u) {
+                    *r -= uk * b;
+                }
+                for (s, &v) in shape.iter_mut().zip(uj) {
+                    *s += b * v;
+                }
+            }
+            let Some(mut f) = fit_fourier_core(
+                values,
+                &rest,
+                t.n_finite,
+                value_type,
+                budget_rms,
+                t.round_mse,
+                prev,
+                fft,
+                Some(&shape),
+            ) else {
+                break;
+            };
+            let mut codes = q.clone();
+            codes.extend_from_slice(&f.codes);
+            f.codes = codes;
+            f.plan.basis = Basis::Trend;
+            f.plan.trend = Some(Trend {
+                degree: degree as u8,
+                step,
+            });
+            f.plan.cost_bits += cost_bits(&q) + 40.0;
+            let order = f.plan.order.unwrap_or(0) as usize;
+            if best
+                .as_ref()
+                .is_none_or(|b| f.plan.cost_bits < b.plan.cost_bits)
+            {
+                best = Some(f);
+            }
+            if order == l {
+                break;
+            }
+            l = order.max(1);
         }
     }
     best
@@ -377,6 +535,7 @@ fn fit_lossless(
             error_rms: 0.0,
             bound_rms: 0.0,
             cost_bits: bits + HEADER_BITS,
+            trend: None,
         },
         codes,
         raw,
@@ -427,6 +586,7 @@ pub fn fit_samples(
                     error_rms: err,
                     bound_rms: bound,
                     cost_bits: bits + HEADER_BITS,
+                    trend: None,
                 },
                 codes,
                 raw: Vec::new(),
@@ -487,6 +647,25 @@ fn fit_fourier(
     prev: Option<&Prev>,
     fft: &dyn Transform,
 ) -> Option<Fitted> {
+    fit_fourier_core(
+        values, spectrum, n_finite, value_type, budget_rms, round_mse, prev, fft, None,
+    )
+}
+
+/// The Fourier fit of `spectrum`, whose synthesis is added to `shape` when given (the
+/// polynomial part of a trend segment).
+#[allow(clippy::too_many_arguments)]
+fn fit_fourier_core(
+    values: &[f64],
+    spectrum: &[C64],
+    n_finite: usize,
+    value_type: ValueType,
+    budget_rms: f64,
+    round_mse: f64,
+    prev: Option<&Prev>,
+    fft: &dyn Transform,
+    shape: Option<&[f64]>,
+) -> Option<Fitted> {
     let n = values.len();
     let m = spectrum.len();
     let pred = prev.map(|p| predict(&p.coeffs, p.n, p.ideal, n, m));
@@ -508,7 +687,10 @@ fn fit_fourier(
         };
         let p = if use_pred { pred.as_deref() } else { None };
         let (codes, coeffs) = quantize(spectrum, p, step as f64, n, l);
-        let (y, output) = synthesize(&coeffs, n, value_type, fft);
+        let (y, output) = match shape {
+            Some(shape) => synthesize_trend(&coeffs, shape, value_type, fft),
+            None => synthesize(&coeffs, n, value_type, fft),
+        };
         let (err, bound) = measure(values, &output, Some(&y), value_type);
         if bound <= budget_rms {
             return Some(Fitted {
@@ -522,6 +704,7 @@ fn fit_fourier(
                     error_rms: err,
                     bound_rms: bound,
                     cost_bits: bits,
+                    trend: None,
                 },
                 codes,
                 raw: Vec::new(),

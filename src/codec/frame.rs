@@ -16,7 +16,7 @@
 use integer_encoding::VarInt;
 
 use crate::codec::quant::code_count;
-use crate::model::{Basis, ValueType};
+use crate::model::{Basis, Trend, ValueType};
 pub use crate::model::{Special, SpecialKind};
 
 /// Version byte of the block layout.
@@ -98,6 +98,8 @@ pub struct SegmentRecord {
     pub raw: Vec<u64>,
     /// Non-finite and null values, by index.
     pub specials: Vec<Special>,
+    /// The polynomial part ([`Basis::Trend`] only); its codes come first.
+    pub trend: Option<Trend>,
 }
 
 impl SegmentRecord {
@@ -105,6 +107,10 @@ impl SegmentRecord {
     pub fn expected_codes(&self, value_type: ValueType) -> usize {
         match self.basis {
             Basis::Fourier => code_count(self.order as usize, self.len),
+            Basis::Trend => {
+                self.trend.map_or(0, |t| t.degree as usize)
+                    + code_count(self.order as usize, self.len)
+            }
             Basis::Samples => self.len,
             Basis::Lossless if value_type.is_integer() => self.len - self.specials.len(),
             Basis::Lossless => 0,
@@ -238,6 +244,16 @@ pub fn serialize_block(b: &Block) -> Vec<u8> {
                 put(&mut segs, s.order as u64);
                 segs.extend_from_slice(&s.step.to_le_bytes());
             }
+            Basis::Trend => {
+                put(&mut segs, s.order as u64);
+                segs.extend_from_slice(&s.step.to_le_bytes());
+                let t = s.trend.unwrap_or(Trend {
+                    degree: 1,
+                    step: 0.0,
+                });
+                segs.push(t.degree);
+                segs.extend_from_slice(&t.step.to_le_bytes());
+            }
             Basis::Samples => segs.extend_from_slice(&s.step.to_le_bytes()),
             Basis::Lossless => {}
         }
@@ -341,6 +357,7 @@ mod tests {
                         index: 2,
                         kind: SpecialKind::Nan(0x7fc0_0001),
                     }],
+                    trend: None,
                 },
                 SegmentRecord {
                     len: 8,
@@ -353,9 +370,28 @@ mod tests {
                     codes: vec![1, -2, 3, 0, -70000],
                     raw: vec![],
                     specials: vec![],
+                    trend: None,
+                },
+                SegmentRecord {
+                    len: 6,
+                    ideal_len: 6.0,
+                    cycles: 1,
+                    basis: Basis::Trend,
+                    order: 2,
+                    step: 0.5,
+                    predicted: false,
+                    codes: vec![40, -3, 7, 1, -1],
+                    raw: vec![],
+                    specials: vec![],
+                    trend: Some(Trend {
+                        degree: 2,
+                        step: 0.125,
+                    }),
                 },
             ],
-            times: BlockTimes::from_times(&[0, 10, 20, 31, 40, 50, 60, 70, 80, 90, 100, 110, 120]),
+            times: BlockTimes::from_times(&[
+                0, 10, 20, 31, 40, 50, 60, 70, 80, 90, 100, 110, 120, 130, 140, 150, 160, 170, 180,
+            ]),
         }
     }
 

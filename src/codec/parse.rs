@@ -7,7 +7,7 @@ use integer_encoding::VarInt;
 use crate::codec::frame::{
     vt_from_tag, Block, BlockTimes, FrameError, SegmentRecord, BLOCK_FORMAT, MAGIC, MAX_BLOCK_BYTES,
 };
-use crate::model::{Basis, Special, SpecialKind, ValueType};
+use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
 /// Decompress a frame (checking zstd's content checksum) with a size limit.
 pub fn decompress(frame: &[u8]) -> Result<Vec<u8>, FrameError> {
@@ -141,8 +141,22 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
         let cycles = sc.count(u32::MAX as usize)? as u32;
         let ideal_len = sc.f32()?;
+        let mut trend = None;
         let (order, step) = match basis {
             Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
+            Basis::Trend => {
+                let order = sc.count(len / 2 + 1)? as u32;
+                let step = sc.f32()?;
+                let degree = sc.byte()?;
+                if !(1..=2).contains(&degree) {
+                    return Err(sc.err("trend degree not 1 or 2"));
+                }
+                trend = Some(Trend {
+                    degree,
+                    step: sc.f32()?,
+                });
+                (order, step)
+            }
             Basis::Samples => (0, sc.f32()?),
             Basis::Lossless => (0, 0.0),
         };
@@ -181,6 +195,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             codes: Vec::new(),
             raw: Vec::new(),
             specials,
+            trend,
         };
         let ncodes = rec.expected_codes(value_type);
         if ncodes > parts[4].len() {

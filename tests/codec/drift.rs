@@ -150,17 +150,20 @@ fn tracking_the_run_up_costs_less_than_a_fixed_period_and_both_meet_the_budget()
     // offset δ, so the energy beyond ±B bins is about 2·sin²(πδ)/(π²B). A 1 % RMS budget
     // leaves 10⁻⁴ of the energy: B ≈ 2·10⁴·sin²(πδ)/π², about 1500 bins for δ = ⅓, more than
     // the segment's ⌊N/2⌋ + 1 ≈ 1100 bins. So at the end a fixed-period segment must keep
-    // most of its bins (or fall back to the samples basis): several times the tracked cost.
+    // most of its bins, fall back to the samples basis, or take the trend basis (whose ramp
+    // removes the jump of the periodic extension but not the curvature and the wrong
+    // harmonic spacing): several times the tracked cost. Measured 2.8×; asserted 2×.
     assert!(
-        fc_last >= 4.0 * tc_last,
+        fc_last >= 2.0 * tc_last,
         "cost per segment at the end: fixed {fc_last} vs tracked {tc_last} bits"
     );
     // Over the run the mismatch grows linearly from 0 to 22 %, so the fixed-period payload
-    // is dominated by its leakage-bound segments. Measured: fixed/tracked = 3.5 (printed
-    // above); a margin of 2× is asserted, which any regression towards parity (tracking
-    // lost, or segments no longer whole cycles) breaks.
+    // is dominated by its leakage-bound segments. Measured: fixed/tracked = 1.9 (printed
+    // above; 3.5 before the trend basis took part of the fixed period's leakage); 1.5× is
+    // asserted, which any regression towards parity (tracking lost, or segments no longer
+    // whole cycles) breaks.
     assert!(
-        pf as f64 >= 2.0 * pt as f64,
+        pf as f64 >= 1.5 * pt as f64,
         "tracking saves too little: tracked {pt} B, fixed {pf} B"
     );
     // Neither is above the time-domain quantizer on the same segments and budgets.
@@ -188,10 +191,11 @@ fn drift_loss_of_tracking_against_the_same_machine_at_constant_speed() {
     // is the speed change inside a segment (0.3 Hz/s: 0.06 Hz in 200 ms, so harmonic 6 moves
     // 0.36 Hz against a 5 Hz bin) and the estimate's lag over a 0.5 s window; both leak
     // energy out of the harmonic bins, where the steady machine's segments are predicted
-    // almost exactly from the previous one. Measured: 22.8× (the gap resampling to the
-    // shaft angle is to close). Asserted: less than half the loss of the fixed period.
+    // almost exactly from the previous one. Measured: 11.9× (22.8× before the trend basis;
+    // the gap that resampling to the shaft angle is to close), against 22.8× for the fixed
+    // period. Asserted: below two thirds of the fixed period's loss.
     assert!(
-        2.0 * loss < fixed_loss,
+        1.5 * loss < fixed_loss,
         "drift loss {loss} vs fixed-period loss {fixed_loss}"
     );
 }

@@ -12,3 +12,4 @@ mod fundamental;
 mod order_inflation;
 mod properties;
 mod ratio;
+mod trend;

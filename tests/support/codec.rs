@@ -138,8 +138,11 @@ pub fn decode_run(enc: &RunEncoding, fft: &dyn Transform) -> Vec<Decoded> {
         {
             let p = planned.next().expect("as many segments as planned");
             assert_eq!(p.len, rec.len);
-            let here = (rec.basis == cyclarc::model::Basis::Fourier)
-                .then(|| (seg.coeffs.clone(), rec.len, rec.ideal_len as f64));
+            let here = matches!(
+                rec.basis,
+                cyclarc::model::Basis::Fourier | cyclarc::model::Basis::Trend
+            )
+            .then(|| (seg.coeffs.clone(), rec.len, rec.ideal_len as f64));
             out.push(Decoded {
                 start: p.start,
                 plan: plan.clone(),
