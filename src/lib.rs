@@ -57,6 +57,12 @@
 //! columns orthogonalized against the kept Fourier terms), and keeps the polynomial only
 //! where it codes smaller.
 //!
+//! **Warp.** A Fourier segment may be coded in angle ([`codec::warp`]): with warp `a` its
+//! samples are resampled at the angle fractions `θ(s) = s + a(s² − s)` of the time fractions
+//! `s = m/N`, and the decoder evaluates the kept series at `N·θ(m/N)`. Orders, bins and
+//! energies then refer to the angle-domain segment; the recorded error is, as always, that of
+//! the decoder's output in time.
+//!
 //! **Budgets.** Per segment, in the channel's units: absolute (`--budget-rms`), or relative to
 //! the segment's own RMS with an absolute floor (`--budget-rel`, `--budget-floor`). A budget
 //! of 0 means lossless. Resolved budgets are stored as f32, rounded down; an absolute budget

@@ -10,6 +10,7 @@
 
 use crate::codec::frame::{Block, FrameError, SegmentRecord};
 use crate::codec::quant::{dequantize_bin, undelta_codes};
+use crate::codec::warp::synthesize_warped;
 use crate::model::{Basis, Special, SpecialKind, ValueType};
 use crate::signal::{half_len, is_real_bin, predict, Transform, C64};
 
@@ -131,7 +132,10 @@ pub fn rebuild_block(
             Basis::Fourier => {
                 let coeffs = fourier_coeffs(seg, &seg.codes, prev.as_ref())
                     .map_err(|what| FrameError::Segment { index: j, what })?;
-                let (_, values) = synthesize(&coeffs, seg.len, block.value_type, fft);
+                let (_, values) = match seg.warp {
+                    Some(a) => synthesize_warped(&coeffs, seg.len, a as f64, block.value_type),
+                    None => synthesize(&coeffs, seg.len, block.value_type, fft),
+                };
                 (values, coeffs)
             }
             Basis::Trend => {

@@ -352,6 +352,7 @@ pub(crate) fn encode_block_of(
             raw: fitted.raw,
             specials: seg_specials,
             trend: fitted.plan.trend,
+            warp: fitted.plan.warp,
         });
         fits.push(fitted.plan);
     }

@@ -20,6 +20,7 @@ use serde::Serialize;
 
 use crate::codec::decode::{synthesize, synthesize_trend, trend_basis, Prev};
 use crate::codec::quant::{cost_bits, delta_codes, dequantize_bin, quantize_bin};
+use crate::codec::warp::{estimate_warp, synthesize_warped, to_angle};
 use crate::model::{Basis, Trend, ValueType};
 use crate::signal::{
     fill_non_finite, half_len, is_real_bin, predict, square_scale, weight, Transform, C64,
@@ -62,6 +63,9 @@ pub struct FitPlan {
     pub cost_bits: f64,
     /// The polynomial part ([`Basis::Trend`] only).
     pub trend: Option<Trend>,
+    /// The warp `a` of a Fourier segment coded in angle ([`crate::codec::warp`]), stored
+    /// exactly as f32.
+    pub warp: Option<f32>,
 }
 
 /// A fitted segment: the plan, the integer codes, and the decoder's reconstruction.
@@ -331,6 +335,15 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
         .as_ref()
         .and_then(|f| f.plan.order)
         .map(|o| o as usize);
+    if let Some(order) = fourier_order {
+        if let Some(f) = fit_warped(
+            values, &filled, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, order,
+        ) {
+            if f.plan.cost_bits < best.plan.cost_bits {
+                best = f;
+            }
+        }
+    }
     if let Some(f) = fourier {
         if f.plan.cost_bits < best.plan.cost_bits {
             best = f;
@@ -350,6 +363,61 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
         }
     }
     best
+}
+
+/// The warped fit ([`crate::codec::warp`]): the warp estimated from the strongest bin's phase
+/// over the segment's thirds, tried when it would move the highest kept bin by more than
+/// [`WARP_MIN_DRIFT`] of a cycle across the segment; the segment resampled in angle and coded
+/// as [`fit_fourier`] codes a segment, with the decoder's warped synthesis.
+#[allow(clippy::too_many_arguments)]
+fn fit_warped(
+    values: &[f64],
+    filled: &[f64],
+    spectrum: &[C64],
+    n_finite: usize,
+    value_type: ValueType,
+    budget_rms: f64,
+    round_mse: f64,
+    prev: Option<&Prev>,
+    order: usize,
+) -> Option<Fitted> {
+    let bin = (1..spectrum.len())
+        .max_by(|&a, &b| spectrum[a].norm_sqr().total_cmp(&spectrum[b].norm_sqr()))?;
+    let a = estimate_warp(filled, bin)? as f32;
+    if !((a as f64).abs() * order as f64 / 4.0 > WARP_MIN_DRIFT) {
+        return None;
+    }
+    let y = to_angle(filled, a as f64);
+    let fft = crate::signal::RealFft::shared();
+    let spec = fft.forward(&y);
+    let mut f = fit_fourier_core(
+        values,
+        &spec,
+        n_finite,
+        value_type,
+        budget_rms,
+        round_mse,
+        prev,
+        fft,
+        Synthesis::Warp(a as f64),
+    )?;
+    f.plan.warp = Some(a);
+    f.plan.cost_bits += 32.0;
+    Some(f)
+}
+
+/// A warp is tried when it moves the highest kept bin by more than this many cycles.
+pub const WARP_MIN_DRIFT: f64 = 0.05;
+
+/// How a Fourier fit's coefficients become samples.
+#[derive(Clone, Copy)]
+enum Synthesis<'a> {
+    /// The inverse DFT.
+    Plain,
+    /// The inverse DFT plus a polynomial.
+    Trend(&'a [f64]),
+    /// The series evaluated at warped angles.
+    Warp(f64),
 }
 
 /// Whether the periodic extension of a segment jumps: its first sample against its last
@@ -461,7 +529,7 @@ fn fit_trend(
                 t.round_mse,
                 prev,
                 fft,
-                Some(&shape),
+                Synthesis::Trend(&shape),
             ) else {
                 break;
             };
@@ -536,6 +604,7 @@ fn fit_lossless(
             bound_rms: 0.0,
             cost_bits: bits + HEADER_BITS,
             trend: None,
+            warp: None,
         },
         codes,
         raw,
@@ -587,6 +656,7 @@ pub fn fit_samples(
                     bound_rms: bound,
                     cost_bits: bits + HEADER_BITS,
                     trend: None,
+                    warp: None,
                 },
                 codes,
                 raw: Vec::new(),
@@ -648,12 +718,19 @@ fn fit_fourier(
     fft: &dyn Transform,
 ) -> Option<Fitted> {
     fit_fourier_core(
-        values, spectrum, n_finite, value_type, budget_rms, round_mse, prev, fft, None,
+        values,
+        spectrum,
+        n_finite,
+        value_type,
+        budget_rms,
+        round_mse,
+        prev,
+        fft,
+        Synthesis::Plain,
     )
 }
 
-/// The Fourier fit of `spectrum`, whose synthesis is added to `shape` when given (the
-/// polynomial part of a trend segment).
+/// The Fourier fit of `spectrum`, synthesized as `synthesis` says.
 #[allow(clippy::too_many_arguments)]
 fn fit_fourier_core(
     values: &[f64],
@@ -664,7 +741,7 @@ fn fit_fourier_core(
     round_mse: f64,
     prev: Option<&Prev>,
     fft: &dyn Transform,
-    shape: Option<&[f64]>,
+    synthesis: Synthesis<'_>,
 ) -> Option<Fitted> {
     let n = values.len();
     let m = spectrum.len();
@@ -687,9 +764,10 @@ fn fit_fourier_core(
         };
         let p = if use_pred { pred.as_deref() } else { None };
         let (codes, coeffs) = quantize(spectrum, p, step as f64, n, l);
-        let (y, output) = match shape {
-            Some(shape) => synthesize_trend(&coeffs, shape, value_type, fft),
-            None => synthesize(&coeffs, n, value_type, fft),
+        let (y, output) = match synthesis {
+            Synthesis::Trend(shape) => synthesize_trend(&coeffs, shape, value_type, fft),
+            Synthesis::Warp(a) => synthesize_warped(&coeffs, n, a, value_type),
+            Synthesis::Plain => synthesize(&coeffs, n, value_type, fft),
         };
         let (err, bound) = measure(values, &output, Some(&y), value_type);
         if bound <= budget_rms {
@@ -705,6 +783,7 @@ fn fit_fourier_core(
                     bound_rms: bound,
                     cost_bits: bits,
                     trend: None,
+                    warp: None,
                 },
                 codes,
                 raw: Vec::new(),

@@ -100,6 +100,8 @@ pub struct SegmentRecord {
     pub specials: Vec<Special>,
     /// The polynomial part ([`Basis::Trend`] only); its codes come first.
     pub trend: Option<Trend>,
+    /// The warp of a Fourier segment coded in angle ([`crate::codec::warp`]).
+    pub warp: Option<f32>,
 }
 
 impl SegmentRecord {
@@ -235,10 +237,17 @@ pub fn serialize_block(b: &Block) -> Vec<u8> {
     let mut codes = Vec::new();
     let mut raw_words: Vec<(u64, usize)> = Vec::new();
     for s in &b.segments {
-        segs.push(s.basis.tag() | if s.predicted { 0x10 } else { 0 });
+        segs.push(
+            s.basis.tag()
+                | if s.predicted { 0x10 } else { 0 }
+                | if s.warp.is_some() { 0x20 } else { 0 },
+        );
         put(&mut segs, s.len as u64);
         put(&mut segs, s.cycles as u64);
         segs.extend_from_slice(&s.ideal_len.to_le_bytes());
+        if let Some(a) = s.warp {
+            segs.extend_from_slice(&a.to_le_bytes());
+        }
         match s.basis {
             Basis::Fourier => {
                 put(&mut segs, s.order as u64);
@@ -358,6 +367,7 @@ mod tests {
                         kind: SpecialKind::Nan(0x7fc0_0001),
                     }],
                     trend: None,
+                    warp: None,
                 },
                 SegmentRecord {
                     len: 8,
@@ -371,6 +381,7 @@ mod tests {
                     raw: vec![],
                     specials: vec![],
                     trend: None,
+                    warp: Some(-0.003),
                 },
                 SegmentRecord {
                     len: 6,
@@ -387,6 +398,7 @@ mod tests {
                         degree: 2,
                         step: 0.125,
                     }),
+                    warp: None,
                 },
             ],
             times: BlockTimes::from_times(&[

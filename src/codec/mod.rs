@@ -13,6 +13,7 @@ pub mod params;
 pub mod parse;
 pub mod quant;
 pub mod segment;
+pub mod warp;
 
 pub use decode::{rebuild_block, synthesize, DecodedSegment, Prev};
 pub use encode::{encode_run, CodecError, EncodedBlock, RunEncoding, RunParams, SegmentSummary};

@@ -141,6 +141,18 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
         let cycles = sc.count(u32::MAX as usize)? as u32;
         let ideal_len = sc.f32()?;
+        let warp = if tag & 0x20 != 0 {
+            if basis != Basis::Fourier {
+                return Err(sc.err("warp on a segment that is not Fourier"));
+            }
+            let a = sc.f32()?;
+            if !(a.abs() as f64 <= crate::codec::warp::MAX_WARP) {
+                return Err(sc.err("warp out of range"));
+            }
+            Some(a)
+        } else {
+            None
+        };
         let mut trend = None;
         let (order, step) = match basis {
             Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
@@ -196,6 +208,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             raw: Vec::new(),
             specials,
             trend,
+            warp,
         };
         let ncodes = rec.expected_codes(value_type);
         if ncodes > parts[4].len() {

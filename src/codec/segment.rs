@@ -233,9 +233,33 @@ enum Mode {
     Tracked {
         window: usize,
         f_cur: f64,
-        /// The current tracking block's end and its segment length, once estimated.
-        block: Option<(usize, f64, u32)>,
+        /// The current tracking block, once estimated.
+        block: Option<TrackBlock>,
     },
+}
+
+/// A tracking block: the fundamental estimated at its centre and at the next block's, and
+/// the cycles per segment.
+#[derive(Debug, Clone, Copy)]
+struct TrackBlock {
+    end: usize,
+    k: u32,
+    /// (centre, Hz) of this block's window and of the next one's.
+    here: (f64, f64),
+    next: (f64, f64),
+}
+
+impl TrackBlock {
+    /// The fundamental at sample position `t`, linear between the two window centres.
+    fn hz_at(&self, t: f64) -> f64 {
+        let (c0, f0) = self.here;
+        let (c1, f1) = self.next;
+        if c1 > c0 {
+            f0 + (f1 - f0) * (t - c0) / (c1 - c0)
+        } else {
+            f0
+        }
+    }
 }
 
 /// Incremental segmentation of one run: feed the samples as they arrive; the segments it
@@ -372,9 +396,9 @@ impl Planner {
                     block,
                 } => {
                     let w = *window;
-                    if let Some((end, _, _)) = *block {
-                        if start >= end {
-                            self.block_start = end;
+                    if let Some(tb) = *block {
+                        if start >= tb.end {
+                            self.block_start = tb.end;
                             *block = None;
                         }
                     }
@@ -388,23 +412,47 @@ impl Planner {
                         let c = (bs + block_end) / 2;
                         let a = c.saturating_sub(w / 2);
                         let b = (a + w).min(avail);
-                        let local = longest_finite(&x[at(a)..at(b)]);
                         let fs = self.settings.sample_rate;
-                        if local.len() >= w / 2 {
-                            if let Some(f) = track(local, fs, *f_cur, TRACK_REL) {
-                                *f_cur = f;
-                            }
+                        let estimate = |a: usize, b: usize, f: f64| -> Option<f64> {
+                            let local = longest_finite(&x[at(a)..at(b)]);
+                            (local.len() >= w / 2)
+                                .then(|| track(local, fs, f, TRACK_REL))
+                                .flatten()
+                        };
+                        if let Some(f) = estimate(a, b, *f_cur) {
+                            *f_cur = f;
                         }
+                        // The next block's window, looked at ahead (it is estimated the
+                        // same way when its turn comes), so the period can follow the
+                        // speed between the two centres instead of stepping at the edge.
+                        let c1 = block_end + w / 2;
+                        let (a1, b1) = (c1.saturating_sub(w / 2), (c1 + w / 2).min(avail));
+                        let f_next = (a1 < b1)
+                            .then(|| estimate(a1, b1, *f_cur))
+                            .flatten()
+                            .unwrap_or(*f_cur);
                         if let Some((lo, hi)) = &mut self.range {
                             *lo = lo.min(*f_cur);
                             *hi = hi.max(*f_cur);
                         }
-                        let period = fs / *f_cur;
-                        let k = cycles_per_segment(&self.settings, period);
-                        *block = Some((block_end, k as f64 * period, k));
+                        let k = cycles_per_segment(&self.settings, fs / *f_cur);
+                        *block = Some(TrackBlock {
+                            end: block_end,
+                            k,
+                            here: (c as f64, *f_cur),
+                            next: (c1 as f64, f_next),
+                        });
                     }
-                    let (_, ideal, k) = block.unwrap_or((0, 1.0, 0));
-                    (ideal, k)
+                    match *block {
+                        Some(tb) => {
+                            let fs = self.settings.sample_rate;
+                            // The period at the segment's middle (one step of refinement).
+                            let guess = tb.k as f64 * fs / tb.hz_at(self.phi);
+                            let hz = tb.hz_at(self.phi + 0.5 * guess);
+                            (tb.k as f64 * fs / hz, tb.k)
+                        }
+                        None => (1.0, 0),
+                    }
                 }
             };
             let next = self.phi + ideal;
