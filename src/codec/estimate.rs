@@ -316,9 +316,14 @@ pub fn estimate_fundamental(x: &[f64], fs: f64, f_lo: f64, f_hi: f64) -> Option<
 /// with weights power·h² (the precision of a line's frequency over h grows with h). `None`
 /// when `x` is too short or has no power there.
 pub fn refine(x: &[f64], fs: f64, f0: f64, rel: f64) -> Option<f64> {
-    let spec = Spectrum::new(x, fs)?;
+    refine_on(&Spectrum::new(x, fs)?, x.len(), f0, rel)
+}
+
+/// [`refine`] on the spectrum of an `n`-sample stretch.
+fn refine_on(spec: &Spectrum, n: usize, f0: f64, rel: f64) -> Option<f64> {
+    let fs = spec.fs;
     let h_max = ((spec.top_hz() / f0) as usize).clamp(1, TRACK_HARMONICS);
-    let step = (fs / x.len() as f64) / (4.0 * h_max as f64);
+    let step = (fs / n as f64) / (4.0 * h_max as f64);
     let points = ((2.0 * rel * f0 / step).ceil() as usize).clamp(8, 4000);
     let lo = f0 * (1.0 - rel);
     let step = 2.0 * rel * f0 / points as f64;
@@ -354,8 +359,8 @@ pub fn refine(x: &[f64], fs: f64, f0: f64, rel: f64) -> Option<f64> {
 /// Follow a drifting fundamental: [`refine`] within `f_cur·(1 ± rel)`, accepted when the
 /// comb there still explains a fair share of the window (score ≥ 0.2).
 pub fn track(x: &[f64], fs: f64, f_cur: f64, rel: f64) -> Option<f64> {
-    let f = refine(x, fs, f_cur, rel)?;
     let spec = Spectrum::new(x, fs)?;
+    let f = refine_on(&spec, x.len(), f_cur, rel)?;
     (spec.score(f) >= 0.2).then_some(f)
 }
 

@@ -329,7 +329,15 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
         }
     }
     let fourier = fit_fourier(
-        values, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, fft,
+        values,
+        &spectrum,
+        n_finite,
+        value_type,
+        budget_rms,
+        round_mse,
+        prev,
+        fft,
+        Synthesis::Plain,
     );
     let fourier_order = fourier
         .as_ref()
@@ -338,6 +346,7 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
     if let Some(order) = fourier_order {
         if let Some(f) = fit_warped(
             values, &filled, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, order,
+            fft,
         ) {
             if f.plan.cost_bits < best.plan.cost_bits {
                 best = f;
@@ -380,6 +389,7 @@ fn fit_warped(
     round_mse: f64,
     prev: Option<&Prev>,
     order: usize,
+    fft: &dyn Transform,
 ) -> Option<Fitted> {
     let bin = (1..spectrum.len())
         .max_by(|&a, &b| spectrum[a].norm_sqr().total_cmp(&spectrum[b].norm_sqr()))?;
@@ -387,10 +397,8 @@ fn fit_warped(
     if !((a as f64).abs() * order as f64 / 4.0 > WARP_MIN_DRIFT) {
         return None;
     }
-    let y = to_angle(filled, a as f64);
-    let fft = crate::signal::RealFft::shared();
-    let spec = fft.forward(&y);
-    let mut f = fit_fourier_core(
+    let spec = fft.forward(&to_angle(filled, a as f64));
+    let mut f = fit_fourier(
         values,
         &spec,
         n_finite,
@@ -495,14 +503,13 @@ fn fit_trend(
         return None;
     }
     let mut best: Option<Fitted> = None;
+    let all = trend_basis(n, 2)?;
+    let all_us: Vec<Vec<C64>> = all.iter().map(|u| fft.forward(u)).collect();
     for degree in 1..=2usize {
-        let Some(basis) = trend_basis(n, degree) else {
-            continue;
-        };
-        let us: Vec<Vec<C64>> = basis.iter().map(|u| fft.forward(u)).collect();
+        let (basis, us) = (&all[..degree], &all_us[..degree]);
         let mut l = t.fourier_order.unwrap_or(m / 2).clamp(1, m);
         for _ in 0..2 {
-            let Some(beta) = projected_ls(t.spectrum, &us, l, n) else {
+            let Some(beta) = projected_ls(t.spectrum, us, l, n) else {
                 break;
             };
             let q: Vec<i64> = beta
@@ -511,7 +518,7 @@ fn fit_trend(
                 .collect();
             let mut rest = t.spectrum.to_vec();
             let mut shape = vec![0.0; n];
-            for ((&qj, u), uj) in q.iter().zip(&us).zip(&basis) {
+            for ((&qj, u), uj) in q.iter().zip(us).zip(basis) {
                 let b = qj as f64 * step as f64;
                 for (r, &uk) in rest.iter_mut().zip(u) {
                     *r -= uk * b;
@@ -520,7 +527,7 @@ fn fit_trend(
                     *s += b * v;
                 }
             }
-            let Some(mut f) = fit_fourier_core(
+            let Some(mut f) = fit_fourier(
                 values,
                 &rest,
                 t.n_finite,
@@ -706,33 +713,9 @@ pub fn choose_step_order(
     best
 }
 
-#[allow(clippy::too_many_arguments)]
-fn fit_fourier(
-    values: &[f64],
-    spectrum: &[C64],
-    n_finite: usize,
-    value_type: ValueType,
-    budget_rms: f64,
-    round_mse: f64,
-    prev: Option<&Prev>,
-    fft: &dyn Transform,
-) -> Option<Fitted> {
-    fit_fourier_core(
-        values,
-        spectrum,
-        n_finite,
-        value_type,
-        budget_rms,
-        round_mse,
-        prev,
-        fft,
-        Synthesis::Plain,
-    )
-}
-
 /// The Fourier fit of `spectrum`, synthesized as `synthesis` says.
 #[allow(clippy::too_many_arguments)]
-fn fit_fourier_core(
+fn fit_fourier(
     values: &[f64],
     spectrum: &[C64],
     n_finite: usize,

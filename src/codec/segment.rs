@@ -247,6 +247,9 @@ struct TrackBlock {
     /// (centre, Hz) of this block's window and of the next one's.
     here: (f64, f64),
     next: (f64, f64),
+    /// The look-ahead estimate: (window start, end, the frequency it started from, result),
+    /// reused by the next block when its window and starting frequency are the same.
+    ahead: (usize, usize, f64, Option<f64>),
 }
 
 impl TrackBlock {
@@ -396,9 +399,11 @@ impl Planner {
                     block,
                 } => {
                     let w = *window;
+                    let mut ahead = None;
                     if let Some(tb) = *block {
                         if start >= tb.end {
                             self.block_start = tb.end;
+                            ahead = Some(tb.ahead);
                             *block = None;
                         }
                     }
@@ -419,7 +424,11 @@ impl Planner {
                                 .then(|| track(local, fs, f, TRACK_REL))
                                 .flatten()
                         };
-                        if let Some(f) = estimate(a, b, *f_cur) {
+                        let here = match ahead {
+                            Some((a0, b0, f0, r)) if (a0, b0, f0) == (a, b, *f_cur) => r,
+                            _ => estimate(a, b, *f_cur),
+                        };
+                        if let Some(f) = here {
                             *f_cur = f;
                         }
                         // The next block's window, looked at ahead (it is estimated the
@@ -427,10 +436,9 @@ impl Planner {
                         // speed between the two centres instead of stepping at the edge.
                         let c1 = block_end + w / 2;
                         let (a1, b1) = (c1.saturating_sub(w / 2), (c1 + w / 2).min(avail));
-                        let f_next = (a1 < b1)
-                            .then(|| estimate(a1, b1, *f_cur))
-                            .flatten()
-                            .unwrap_or(*f_cur);
+                        let from = *f_cur;
+                        let looked = (a1 < b1).then(|| estimate(a1, b1, from)).flatten();
+                        let f_next = looked.unwrap_or(from);
                         if let Some((lo, hi)) = &mut self.range {
                             *lo = lo.min(*f_cur);
                             *hi = hi.max(*f_cur);
@@ -441,6 +449,7 @@ impl Planner {
                             k,
                             here: (c as f64, *f_cur),
                             next: (c1 as f64, f_next),
+                            ahead: (a1, b1, from, looked),
                         });
                     }
                     match *block {
