@@ -131,6 +131,20 @@ pub enum Error {
         /// The newest major version this build reads.
         supported: u32,
     },
+    /// The archive was written in an older format this build no longer reads.
+    #[error(
+        "{}: archive format {found} was written by cyclarc 0.1 (one row per segment); this \
+         build reads format {supported}: decode it with cyclarc 0.1 and archive the result again",
+        file.display()
+    )]
+    OldVersion {
+        /// The archive.
+        file: PathBuf,
+        /// The version the archive declares.
+        found: String,
+        /// The major version this build reads.
+        supported: u32,
+    },
     /// Writing an output failed; nothing was published under the final name.
     #[error("{}: write failed: {source}", file.display())]
     Write {

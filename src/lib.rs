@@ -65,14 +65,15 @@
 //!
 //! **Budgets.** Per segment, in the channel's units: absolute (`--budget-rms`), or relative to
 //! the segment's own RMS with an absolute floor (`--budget-rel`, `--budget-floor`). A budget
-//! of 0 means lossless. Resolved budgets are stored as f32, rounded down; an absolute budget
+//! of 0 means lossless. Resolved budgets are f32, rounded down (the archive records the rule;
+//! `verify` resolves it again on the source); an absolute budget
 //! no f32 holds (above `f32::MAX`, or positive below the least positive f32) is refused, and
 //! so is a relative one that resolves above `f32::MAX`. Errors are recorded as f32 rounded
 //! up, and measured at a power-of-two scale when their squares would leave f64's range, so
 //! a tiny error is never recorded as 0 ([`signal::rms_of`]).
 //!
-//! **Archive.** One Parquet file, one row per segment; the schema, its columns and the version
-//! rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
+//! **Archive.** One Parquet file, one row per second of a block's segments (format 2); the
+//! schema, its columns and the version rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
 //! exactly, and NaN, ±Inf and null values exactly where they were.
 //!
 //! **Determinism.** The same input and settings give a byte-identical archive on one thread or

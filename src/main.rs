@@ -7,6 +7,7 @@ use std::process::ExitCode;
 
 use clap::{Args, Parser, Subcommand};
 
+use cyclarc::archive::segment_list;
 use cyclarc::jobs::pipeline;
 use cyclarc::options::{EncodeOptions, Layout};
 use cyclarc::signal::RealFft;
@@ -73,6 +74,12 @@ enum Command {
         /// Print as JSON on stdout.
         #[arg(long)]
         json: bool,
+        /// List every segment too (its start, samples, basis, order, cycles and row).
+        #[arg(long)]
+        segments: bool,
+        /// Print the archive's metadata JSON instead.
+        #[arg(long, conflicts_with_all = ["json", "segments"])]
+        meta: bool,
     },
     /// Run a pipeline file (pipelines/*.toml).
     Run {
@@ -239,9 +246,18 @@ fn run(cli: Cli) -> Result<i32, Error> {
             }
             Ok(if r.passed() { 0 } else { 1 })
         }
-        Command::Inspect { archive, json } => {
+        Command::Inspect {
+            archive,
+            json,
+            segments,
+            meta,
+        } => {
             let a = Archive::open(&archive, DigestPolicy::Skip)?;
-            let i = report::inspect(&a);
+            if meta {
+                print_json(&a.meta);
+                return Ok(0);
+            }
+            let i = report::inspect(&a, segment_list(&a)?, segments);
             if json {
                 print_json(&i);
             } else {

@@ -173,6 +173,7 @@ pub enum TimeType {
         /// Unit.
         unit: String,
         /// Time zone, if any.
+        #[serde(default, skip_serializing_if = "Option::is_none")]
         tz: Option<String>,
     },
     /// Int64 epoch nanoseconds.
@@ -288,10 +289,13 @@ pub struct SourceSchema {
     /// Time type.
     pub time_type: TimeType,
     /// Channel column (long).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub channel_column: Option<String>,
     /// Channel column type (long).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub name_type: Option<NameType>,
     /// Value column (long).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub value_column: Option<String>,
     /// Channels in source order (wide: column order; long: order of first appearance while
     /// reading, name order in an archive's metadata).

@@ -10,9 +10,8 @@ use std::collections::BTreeMap;
 use serde::Serialize;
 
 use crate::archive::schema::{column_class, ColumnClass};
-use crate::archive::Archive;
+use crate::archive::{Archive, SegmentInfo};
 use crate::jobs::{EncodeSummary, VerifyReport};
-use crate::model::Basis;
 
 /// One channel in `inspect`.
 #[derive(Debug, Clone, Serialize)]
@@ -69,10 +68,14 @@ pub struct Inspect {
     pub channels: Vec<ChannelInspect>,
     /// Byte split.
     pub bytes: ByteSplit,
+    /// Every segment (`inspect --segments`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub segments: Option<Vec<SegmentInfo>>,
 }
 
-/// Build the `inspect` result from an archive.
-pub fn inspect(a: &Archive) -> Inspect {
+/// Build the `inspect` result from an archive and its segments (see
+/// [`crate::archive::segment_list`]); `list` keeps the segments in the result.
+pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
     // Columns this build does not write (a newer minor version's) count as metadata.
     let sum_cols = |class: ColumnClass| -> u64 {
         a.column_bytes
@@ -97,35 +100,24 @@ pub fn inspect(a: &Archive) -> Inspect {
     let mut channels = Vec::new();
     for cm in &a.meta.channels {
         let rows: Vec<_> = a.rows.iter().filter(|r| r.channel == cm.name).collect();
-        let mut orders: Vec<u32> = rows.iter().filter_map(|r| r.seg.order).collect();
+        let segs: Vec<&SegmentInfo> = segments.iter().filter(|s| s.channel == cm.name).collect();
+        let mut orders: Vec<u32> = segs.iter().filter_map(|s| s.order).collect();
         orders.sort_unstable();
         let mut basis = BTreeMap::new();
-        for b in [
-            Basis::Fourier,
-            Basis::Trend,
-            Basis::Samples,
-            Basis::Lossless,
-        ] {
-            let n = rows.iter().filter(|r| r.seg.basis == b).count();
-            if n > 0 {
-                basis.insert(b.name().to_string(), n);
-            }
+        for s in &segs {
+            *basis.entry(s.basis.to_string()).or_insert(0) += 1;
         }
         let pay: u64 = rows
             .iter()
             .filter_map(|r| r.payload.as_ref().map(|p| p.len() as u64 + 4))
             .sum();
         let bytes = pay + (other * rows.len() as f64 / total_rows).round() as u64;
-        let samples: u64 = rows.iter().map(|r| r.seg.samples as u64).sum();
-        let worst = rows
-            .iter()
-            .filter(|r| r.seg.budget_rms > 0.0)
-            .map(|r| r.seg.error_rms as f64 / r.seg.budget_rms as f64)
-            .fold(0.0, f64::max);
+        let samples: u64 = rows.iter().map(|r| r.samples as u64).sum();
+        let worst = rows.iter().map(|r| r.budget_use as f64).fold(0.0, f64::max);
         channels.push(ChannelInspect {
             channel: cm.name.clone(),
             value_type: cm.value_type.name().into(),
-            segments: rows.len(),
+            segments: segs.len(),
             samples,
             order: (!orders.is_empty()).then(|| {
                 (
@@ -166,6 +158,7 @@ pub fn inspect(a: &Archive) -> Inspect {
         source_bytes: a.meta.source.bytes,
         channels,
         bytes: split,
+        segments: list.then_some(segments),
     }
 }
 
@@ -292,6 +285,36 @@ pub fn inspect_text(i: &Inspect) -> String {
         bytes(b.file_overhead),
         pct(b.file_overhead)
     ));
+    if let Some(segs) = &i.segments {
+        let rows: Vec<Vec<String>> = segs
+            .iter()
+            .map(|g| {
+                let opt = |v: Option<u32>| v.map_or("-".into(), |v| v.to_string());
+                vec![
+                    g.channel.clone(),
+                    g.start_ns.to_string(),
+                    g.samples.to_string(),
+                    g.basis.to_string(),
+                    opt(g.order),
+                    opt(g.cycles),
+                    g.row.to_string(),
+                ]
+            })
+            .collect();
+        s.push('\n');
+        s.push_str(&table(
+            &[
+                "channel",
+                "start (ns)",
+                "samples",
+                "basis",
+                "order",
+                "cycles",
+                "row",
+            ],
+            &rows,
+        ));
+    }
     s
 }
 

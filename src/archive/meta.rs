@@ -5,19 +5,20 @@ use std::path::Path;
 
 use serde::{Deserialize, Serialize};
 
+use crate::codec::params::Budget;
 use crate::codec::segment::{FundamentalSource, SegmentPlan};
 use crate::error::{Error, Result};
 use crate::fsio::sha256_file;
 use crate::model::{ChannelInfo, Layout, SourceSchema, ValueType};
 
 /// Archive format major version.
-pub const FORMAT_MAJOR: u32 = 1;
+pub const FORMAT_MAJOR: u32 = 2;
 
 /// Archive format minor version.
-pub const FORMAT_MINOR: u32 = 2;
+pub const FORMAT_MINOR: u32 = 0;
 
 /// Archive format version as written.
-pub const FORMAT_VERSION: &str = "1.2";
+pub const FORMAT_VERSION: &str = "2.0";
 
 /// This program's version, recorded as the writer.
 pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
@@ -25,11 +26,31 @@ pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));
 /// Key of the format version in the Parquet file metadata.
 pub const KEY_FORMAT: &str = "cyclarc.format";
 
-/// Key of the JSON metadata.
+/// Key of the metadata: JSON, compressed as one zstd frame with its content checksum, in
+/// standard base64 (`cyclarc inspect --meta` prints the JSON).
 pub const KEY_META: &str = "cyclarc.meta";
 
-/// Key of the CRC-32 (hex) of the JSON metadata.
-pub const KEY_META_CRC: &str = "cyclarc.meta.crc32";
+/// zstd level of the packed metadata.
+const META_ZSTD_LEVEL: i32 = 19;
+
+/// The metadata as stored under [`KEY_META`].
+pub fn pack_meta(meta: &ArchiveMeta) -> std::result::Result<String, String> {
+    use base64::Engine;
+    let json = serde_json::to_vec(meta).map_err(|e| e.to_string())?;
+    let z = crate::codec::frame::compress(&json, META_ZSTD_LEVEL).map_err(|e| e.to_string())?;
+    Ok(base64::engine::general_purpose::STANDARD.encode(z))
+}
+
+/// The metadata JSON stored under [`KEY_META`]; `Err` says why it is unreadable.
+pub fn unpack_meta(value: &str) -> std::result::Result<String, String> {
+    use base64::Engine;
+    let z = base64::engine::general_purpose::STANDARD
+        .decode(value)
+        .map_err(|e| format!("metadata is not base64: {e}"))?;
+    let json = crate::codec::parse::decompress(&z)
+        .map_err(|e| format!("metadata checksum mismatch or damaged frame ({e})"))?;
+    String::from_utf8(json).map_err(|_| "metadata is not UTF-8".into())
+}
 
 /// The source an archive was made from.
 #[derive(Debug, Clone, PartialEq, Eq, Serialize, Deserialize)]
@@ -75,18 +96,23 @@ pub struct ChannelMeta {
     /// How the fundamental was found: `given`, `estimated`, `not_periodic`, or `mixed`.
     pub fundamental: String,
     /// First estimate or given value (Hz).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub fundamental_hz: Option<f64>,
     /// Confidence of the first estimate (autocorrelation at the period).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub confidence: Option<f64>,
     /// Lowest and highest tracked fundamental (Hz).
+    #[serde(default, skip_serializing_if = "Option::is_none")]
     pub tracked_hz: Option<(f64, f64)>,
     /// The candidate fundamental that came second at the start of the first run (Hz), and
     /// its trial bytes per sample over the winner's (absent when there was none).
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub runner_up_hz: Option<(f64, f64)>,
-    /// Blocks of the channel in the archive (format 1.1 on; absent in 1.0 archives).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    /// Blocks of the channel in the archive.
     pub blocks: Option<u64>,
+    /// The channel's budget rule, which each segment's budget was resolved from (on the RMS
+    /// of its source's finite values).
+    pub budget: Option<Budget>,
 }
 
 impl ChannelMeta {
@@ -111,6 +137,7 @@ impl ChannelMeta {
             tracked_hz: None,
             runner_up_hz: None,
             blocks: None,
+            budget: None,
         }
     }
 
@@ -169,6 +196,8 @@ impl ArchiveMeta {
             // not change the archive's bytes (the wide layout's column order is kept).
             schema.channels.sort_by(|a, b| a.name.cmp(&b.name));
         }
+        let mut settings = settings;
+        drop_nulls(&mut settings);
         ArchiveMeta {
             format: FORMAT_VERSION.into(),
             writer: WRITER.into(),
@@ -177,6 +206,18 @@ impl ArchiveMeta {
             schema,
             channels,
         }
+    }
+}
+
+/// Leave out unset settings (null) from the recorded settings: absent means unset.
+fn drop_nulls(v: &mut serde_json::Value) {
+    match v {
+        serde_json::Value::Object(m) => {
+            m.retain(|_, x| !x.is_null());
+            m.values_mut().for_each(drop_nulls);
+        }
+        serde_json::Value::Array(a) => a.iter_mut().for_each(drop_nulls),
+        _ => {}
     }
 }
 
@@ -192,6 +233,13 @@ pub fn check_version(path: &Path, v: &str) -> Result<()> {
         })?;
     if major > FORMAT_MAJOR {
         return Err(Error::FutureVersion {
+            file: path.to_path_buf(),
+            found: v.to_string(),
+            supported: FORMAT_MAJOR,
+        });
+    }
+    if major == 1 {
+        return Err(Error::OldVersion {
             file: path.to_path_buf(),
             found: v.to_string(),
             supported: FORMAT_MAJOR,

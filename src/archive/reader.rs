@@ -5,8 +5,8 @@ use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
-use crate::archive::meta::{check_version, ArchiveMeta, KEY_FORMAT, KEY_META, KEY_META_CRC};
-use crate::archive::schema::{batch_to_rows, SegmentRow};
+use crate::archive::meta::{check_version, unpack_meta, ArchiveMeta, KEY_FORMAT, KEY_META};
+use crate::archive::schema::{batch_to_rows, SliceRow};
 use crate::error::{Error, Result};
 use crate::fsio::{check_digest, contain, digest_path, open_parquet, READ_BATCH_ROWS};
 
@@ -18,7 +18,7 @@ pub struct Archive {
     /// Metadata.
     pub meta: ArchiveMeta,
     /// All rows in file order.
-    pub rows: Vec<SegmentRow>,
+    pub rows: Vec<SliceRow>,
     /// Bytes per column (compressed, as stored), for `inspect`.
     pub column_bytes: Vec<(String, u64)>,
     /// File size.
@@ -134,11 +134,8 @@ fn read_archive(path: &Path) -> Result<Archive> {
         )
     })?;
     check_version(path, &format)?;
-    let meta_json = get(KEY_META).unwrap_or_default();
-    let meta_crc = get(KEY_META_CRC).unwrap_or_default();
-    if meta_crc != format!("{:08x}", crc32fast::hash(meta_json.as_bytes())) {
-        return Err(damaged(path, "file metadata checksum mismatch"));
-    }
+    let meta_json =
+        unpack_meta(&get(KEY_META).unwrap_or_default()).map_err(|e| damaged(path, e))?;
     let meta: ArchiveMeta =
         serde_json::from_str(&meta_json).map_err(|e| damaged(path, format!("metadata: {e}")))?;
     check_version(path, &meta.format)?;
@@ -182,7 +179,7 @@ fn read_archive(path: &Path) -> Result<Archive> {
 /// Rows of one block, in order, as index ranges into `rows`. A block starts where the block
 /// number changes or where a row carries a payload (a block's first row does), so a block
 /// repeated right after itself is two spans, not one of twice the rows.
-pub fn block_spans(rows: &[SegmentRow]) -> Vec<std::ops::Range<usize>> {
+pub fn block_spans(rows: &[SliceRow]) -> Vec<std::ops::Range<usize>> {
     let mut out = Vec::new();
     let mut start = 0;
     for i in 1..=rows.len() {
@@ -252,7 +249,7 @@ pub fn check_blocks(archive: &Archive) -> Vec<Hole> {
         let e = found
             .entry(first.channel.as_str())
             .or_insert((0, 0, i64::MIN));
-        if first.seg.start_ns <= e.2 && e.0 > 0 {
+        if first.start_ns <= e.2 && e.0 > 0 {
             holes.push(hole(
                 Some(&first.channel),
                 Some(b),
@@ -261,8 +258,8 @@ pub fn check_blocks(archive: &Archive) -> Vec<Hole> {
         }
         e.0 += 1;
         for r in &rows[span] {
-            e.1 += r.seg.samples as u64;
-            e.2 = e.2.max(r.seg.start_ns);
+            e.1 += r.samples as u64;
+            e.2 = e.2.max(r.start_ns);
         }
     }
     let recorded: u64 = archive.meta.channels.iter().filter_map(|c| c.blocks).sum();

@@ -1,75 +1,167 @@
-//! The archive's schema: its columns, how each is written, and rows ↔ Arrow batches; and the
-//! checksum that covers a block's frame and every column of its rows.
+//! The archive's schema: its columns, how each is written, and rows ↔ Arrow batches; how a
+//! block's segments are grouped into rows; and the checksum that covers a block's frame and
+//! every column of its rows.
 
 use std::sync::Arc;
 
 use arrow::array::{
     Array, ArrayRef, AsArray, BinaryArray, Float32Array, Int32Array, RecordBatch, StringArray,
-    TimestampNanosecondArray, UInt32Array,
+    TimestampNanosecondArray,
 };
 use arrow::datatypes::{
-    DataType, Field, Float32Type, Int32Type, Schema, TimeUnit, TimestampNanosecondType, UInt32Type,
+    DataType, Field, Float32Type, Int32Type, Schema, TimeUnit, TimestampNanosecondType,
 };
 use parquet::basic::{Compression, Encoding, ZstdLevel};
 use parquet::file::properties::{EnabledStatistics, WriterProperties};
 use parquet::schema::types::ColumnPath;
 
-use crate::codec::encode::{SegmentSummary, DERIVED_HARMONICS};
-use crate::model::Basis;
+use crate::codec::encode::{compact, SegmentSummary};
+use crate::codec::quant::error_to_f32;
+
+/// Longest time from a row's first segment to the start of its last one (ns): rows start at
+/// most a second apart wherever segments are shorter than that, so the query columns keep a
+/// resolution of a second or finer.
+pub const ROW_SPAN_NS: i64 = 1_000_000_000;
 
 /// The CRC-32 stored with a block: over its compressed frame and every column of its rows
 /// (in a fixed byte layout), so that a changed value anywhere in the block is detected.
-pub fn block_checksum(frame: &[u8], rows: &[SegmentRow]) -> u32 {
+pub fn block_checksum(frame: &[u8], rows: &[SliceRow]) -> u32 {
     let mut h = crc32fast::Hasher::new();
     h.update(frame);
-    let opt32 = |h: &mut crc32fast::Hasher, v: Option<u32>| match v {
+    let opt32 = |h: &mut crc32fast::Hasher, v: Option<f32>| match v {
         Some(v) => {
             h.update(&[1]);
-            h.update(&v.to_le_bytes());
+            h.update(&v.to_bits().to_le_bytes());
         }
         None => h.update(&[0]),
     };
     for r in rows {
         h.update(&(r.channel.len() as u64).to_le_bytes());
         h.update(r.channel.as_bytes());
-        h.update(&r.seg.start_ns.to_le_bytes());
-        h.update(&r.seg.samples.to_le_bytes());
-        h.update(&[r.seg.basis.tag()]);
-        opt32(&mut h, r.seg.order);
-        opt32(&mut h, r.seg.cycles);
-        for v in [
-            r.seg.budget_rms,
-            r.seg.error_rms,
-            r.seg.sample_rate_hz,
-            r.seg.rms,
-        ] {
+        h.update(&r.start_ns.to_le_bytes());
+        h.update(&r.samples.to_le_bytes());
+        h.update(&r.block.to_le_bytes());
+        for v in [r.error_rms, r.budget_use, r.rms] {
             h.update(&v.to_bits().to_le_bytes());
         }
-        opt32(&mut h, r.seg.fundamental_hz.map(f32::to_bits));
-        for hm in &r.seg.harmonics {
-            opt32(&mut h, hm.map(|p| p.0.to_bits()));
-            opt32(&mut h, hm.map(|p| p.1.to_bits()));
+        for v in [r.fundamental_hz, r.h1_amp, r.thd] {
+            opt32(&mut h, v);
         }
-        opt32(&mut h, r.seg.thd.map(f32::to_bits));
-        h.update(&r.block.to_le_bytes());
     }
     h.finalize()
 }
 
-/// One archive row: one segment of one channel, with its block number, and on the block's
-/// first row the block's frame and checksum.
+/// One archive row: consecutive segments of one block (see [`ROW_SPAN_NS`]), what a query
+/// needs about them, and on the block's first row the block's frame and checksum. What each
+/// segment is (its length, basis, order, cycles) is in the frame.
 #[derive(Debug, Clone, PartialEq)]
-pub struct SegmentRow {
+pub struct SliceRow {
     /// Channel name.
     pub channel: String,
-    /// What the codec recorded for the segment.
-    pub seg: SegmentSummary,
+    /// Time of the first sample (ns since the epoch).
+    pub start_ns: i64,
+    /// Samples (source rows) in the row's segments.
+    pub samples: u32,
     /// Block number.
     pub block: u32,
-    /// Payload (first row of a block).
+    /// The largest recorded error of the row's segments (rounded up to 16 significant bits).
+    pub error_rms: f32,
+    /// The largest error over budget of the row's lossy segments (rounded up; 0 when all are
+    /// lossless). Each segment's budget is the channel's rule (in the metadata) resolved on
+    /// the RMS of the segment's source values.
+    pub budget_use: f32,
+    /// Fundamental (Hz), samples-weighted over the periodic segments.
+    pub fundamental_hz: Option<f32>,
+    /// RMS of the source, samples-weighted over the segments.
+    pub rms: f32,
+    /// Peak amplitude of the fundamental, RMS over the periodic segments.
+    pub h1_amp: Option<f32>,
+    /// THD (IEEE 519): the segments' harmonic power over their fundamental power.
+    pub thd: Option<f32>,
+    /// The block's frame (first row of a block).
     pub payload: Option<Vec<u8>>,
-    /// CRC-32 of the payload and the block's rows (first row of a block).
+    /// CRC-32 of the frame and the block's rows (first row of a block; stored after the
+    /// frame in the `payload` column).
     pub checksum: Option<u32>,
+}
+
+/// Round a positive value up to 16 significant bits (see [`compact`]), so a recorded error
+/// or ratio never understates.
+pub fn compact_up(v: f64) -> f32 {
+    let f = error_to_f32(v);
+    if !f.is_finite() || f <= 0.0 {
+        return f;
+    }
+    let b = f.to_bits();
+    if b & 0xff == 0 {
+        return f;
+    }
+    let r = f32::from_bits((b | 0xff).wrapping_add(1));
+    if r.is_finite() {
+        r
+    } else {
+        f
+    }
+}
+
+/// Group one block's segments into rows: a row takes segments while they start less than
+/// [`ROW_SPAN_NS`] after its first one. Payload and checksum are left empty.
+pub fn slice_rows(channel: &str, block: u32, segs: &[SegmentSummary]) -> Vec<SliceRow> {
+    let mut out = Vec::new();
+    let mut i = 0;
+    while i < segs.len() {
+        let mut j = i + 1;
+        while j < segs.len() && segs[j].start_ns.saturating_sub(segs[i].start_ns) < ROW_SPAN_NS {
+            j += 1;
+        }
+        out.push(summarize(channel, block, &segs[i..j]));
+        i = j;
+    }
+    out
+}
+
+fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
+    let (mut n, mut ms) = (0.0f64, 0.0f64);
+    let (mut fw, mut fsum) = (0.0f64, 0.0f64);
+    let (mut aw, mut a2) = (0.0f64, 0.0f64);
+    let (mut tw, mut h2) = (0.0f64, 0.0f64);
+    let (mut error, mut used) = (0.0f32, 0.0f64);
+    for s in segs {
+        let w = s.samples as f64;
+        n += w;
+        ms += w * (s.rms as f64).powi(2);
+        if let Some(f) = s.fundamental_hz {
+            fw += w;
+            fsum += w * f as f64;
+        }
+        if let Some((a, _)) = s.harmonics.first().copied().flatten() {
+            let p = w * (a as f64).powi(2);
+            aw += w;
+            a2 += p;
+            if let Some(t) = s.thd {
+                tw += p;
+                h2 += p * (t as f64).powi(2);
+            }
+        }
+        error = error.max(s.error_rms);
+        if s.budget_rms > 0.0 {
+            used = used.max(s.error_rms as f64 / s.budget_rms as f64);
+        }
+    }
+    SliceRow {
+        channel: channel.to_string(),
+        start_ns: segs[0].start_ns,
+        samples: segs.iter().map(|s| s.samples).sum(),
+        block,
+        error_rms: compact_up(error as f64),
+        budget_use: compact_up(used),
+        fundamental_hz: (fw > 0.0).then(|| compact(fsum / fw)),
+        rms: compact((ms / n.max(1.0)).sqrt()),
+        h1_amp: (aw > 0.0).then(|| compact((a2 / aw).sqrt())),
+        thd: (tw > 0.0).then(|| compact((h2 / tw).sqrt())),
+        payload: None,
+        checksum: None,
+    }
 }
 
 /// The Arrow type of an archive column.
@@ -123,7 +215,7 @@ pub enum ColumnWriting {
 /// What a column's bytes count as in `inspect`.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum ColumnClass {
-    /// What a segment is: channel, time, basis, order, budget, error, block.
+    /// Where a row is and what it promised: channel, time, samples, block, budget, error.
     Metadata,
     /// Figures for trending, computed from the source and the coefficients.
     Derived,
@@ -163,39 +255,25 @@ const fn column(
 }
 
 /// The archive's columns, in file order: the one table the schema, the writer's properties
-/// and `inspect`'s byte breakdown are made from. The harmonic columns are `h1_…` to
-/// `h{DERIVED_HARMONICS}_…`.
+/// and `inspect`'s byte breakdown are made from.
 pub const COLUMNS: &[Column] = {
     use ColumnClass::{Derived, Metadata, Payload};
-    use ColumnType::{Binary, Float32, Int32, TimestampNsUtc, UInt32, Utf8};
-    use ColumnWriting::{ByteStreamSplit as Bss, Delta, Dictionary as Dict, Frame, Plain};
+    use ColumnType::{Binary, Float32, Int32, TimestampNsUtc, Utf8};
+    use ColumnWriting::{ByteStreamSplit as Bss, Delta, Dictionary as Dict, Frame};
     &[
         column("channel", Utf8, false, Dict, Metadata),
         column("start", TimestampNsUtc, false, Delta, Metadata),
         column("samples", Int32, false, Dict, Metadata),
-        column("basis", Utf8, false, Dict, Metadata),
-        column("order", Int32, true, Dict, Metadata),
-        column("cycles", Int32, true, Dict, Metadata),
-        column("budget_rms", Float32, false, Bss, Metadata),
+        column("block", Int32, false, Delta, Metadata),
         column("error_rms", Float32, false, Bss, Metadata),
-        column("sample_rate_hz", Float32, false, Dict, Metadata),
+        column("budget_use", Float32, false, Bss, Metadata),
         column("fundamental_hz", Float32, true, Bss, Derived),
         column("rms", Float32, false, Bss, Derived),
         column("h1_amp", Float32, true, Bss, Derived),
-        column("h1_phase", Float32, true, Bss, Derived),
-        column("h2_amp", Float32, true, Bss, Derived),
-        column("h2_phase", Float32, true, Bss, Derived),
-        column("h3_amp", Float32, true, Bss, Derived),
-        column("h3_phase", Float32, true, Bss, Derived),
         column("thd", Float32, true, Bss, Derived),
-        column("block", Int32, false, Delta, Metadata),
         column("payload", Binary, true, Frame, Payload),
-        column("checksum", UInt32, true, Plain, Payload),
     ]
 };
-
-// The table names exactly the derived harmonics' columns.
-const _: () = assert!(COLUMNS.len() == 15 + 2 * DERIVED_HARMONICS);
 
 /// The class of a column by name (`None` for a column this build does not write).
 pub fn column_class(name: &str) -> Option<ColumnClass> {
@@ -212,13 +290,18 @@ pub fn archive_schema() -> Schema {
     )
 }
 
+/// How the archive's columns are written. (Writing a small archive plain and uncompressed
+/// would save about 150 B, but on damaged page headers the parquet reader then allocates
+/// gigabytes: measured with the mutation test, so every archive is written this one way.)
 pub(crate) fn writer_properties() -> WriterProperties {
-    // Statistics only where a query prunes by them (channel, start): per-page statistics
-    // and the page index on every column cost more than a small archive's payload.
+    // Statistics only where a query prunes by them (channel, start), and no page index: on a
+    // small archive each costs more than the payload.
     let mut b = WriterProperties::builder()
         .set_compression(Compression::ZSTD(ZstdLevel::try_new(9).unwrap_or_default()))
         .set_max_row_group_row_count(Some(1 << 20))
-        .set_statistics_enabled(EnabledStatistics::None);
+        .set_statistics_enabled(EnabledStatistics::None)
+        .set_offset_index_disabled(true)
+        .set_created_by(crate::archive::meta::WRITER.into());
     for c in COLUMNS {
         let col = || ColumnPath::from(c.name);
         if matches!(c.name, "channel" | "start") {
@@ -243,70 +326,48 @@ pub(crate) fn writer_properties() -> WriterProperties {
 }
 
 pub(crate) fn rows_to_batch(
-    rows: &[SegmentRow],
+    rows: &[SliceRow],
     schema: &Arc<Schema>,
 ) -> Result<RecordBatch, String> {
-    let mut cols: Vec<ArrayRef> = vec![
+    let f32s = |f: fn(&SliceRow) -> f32| -> ArrayRef {
+        Arc::new(Float32Array::from_iter_values(rows.iter().map(f)))
+    };
+    let opt_f32s = |f: fn(&SliceRow) -> Option<f32>| -> ArrayRef {
+        Arc::new(Float32Array::from_iter(rows.iter().map(f)))
+    };
+    let cols: Vec<ArrayRef> = vec![
         Arc::new(StringArray::from_iter_values(
             rows.iter().map(|r| r.channel.as_str()),
         )),
         Arc::new(
-            TimestampNanosecondArray::from_iter_values(rows.iter().map(|r| r.seg.start_ns))
+            TimestampNanosecondArray::from_iter_values(rows.iter().map(|r| r.start_ns))
                 .with_timezone("UTC"),
         ),
         Arc::new(Int32Array::from_iter_values(
-            rows.iter().map(|r| r.seg.samples as i32),
+            rows.iter().map(|r| r.samples as i32),
         )),
-        Arc::new(StringArray::from_iter_values(
-            rows.iter().map(|r| r.seg.basis.name()),
+        Arc::new(Int32Array::from_iter_values(
+            rows.iter().map(|r| r.block as i32),
         )),
-        Arc::new(Int32Array::from_iter(
-            rows.iter().map(|r| r.seg.order.map(|v| v as i32)),
-        )),
-        Arc::new(Int32Array::from_iter(
-            rows.iter().map(|r| r.seg.cycles.map(|v| v as i32)),
-        )),
-        Arc::new(Float32Array::from_iter_values(
-            rows.iter().map(|r| r.seg.budget_rms),
-        )),
-        Arc::new(Float32Array::from_iter_values(
-            rows.iter().map(|r| r.seg.error_rms),
-        )),
-        Arc::new(Float32Array::from_iter_values(
-            rows.iter().map(|r| r.seg.sample_rate_hz),
-        )),
-        Arc::new(Float32Array::from_iter(
-            rows.iter().map(|r| r.seg.fundamental_hz),
-        )),
-        Arc::new(Float32Array::from_iter_values(
-            rows.iter().map(|r| r.seg.rms),
-        )),
+        f32s(|r| r.error_rms),
+        f32s(|r| r.budget_use),
+        opt_f32s(|r| r.fundamental_hz),
+        f32s(|r| r.rms),
+        opt_f32s(|r| r.h1_amp),
+        opt_f32s(|r| r.thd),
+        Arc::new(BinaryArray::from_iter(rows.iter().map(|r| {
+            r.payload.as_ref().map(|p| {
+                let mut v = Vec::with_capacity(p.len() + 4);
+                v.extend_from_slice(p);
+                v.extend_from_slice(&r.checksum.unwrap_or(0).to_le_bytes());
+                v
+            })
+        }))),
     ];
-    for h in 0..DERIVED_HARMONICS {
-        let get = |r: &SegmentRow| r.seg.harmonics.get(h).copied().flatten();
-        cols.push(Arc::new(Float32Array::from_iter(
-            rows.iter().map(|r| get(r).map(|v| v.0)),
-        )));
-        cols.push(Arc::new(Float32Array::from_iter(
-            rows.iter().map(|r| get(r).map(|v| v.1)),
-        )));
-    }
-    cols.push(Arc::new(Float32Array::from_iter(
-        rows.iter().map(|r| r.seg.thd),
-    )));
-    cols.push(Arc::new(Int32Array::from_iter_values(
-        rows.iter().map(|r| r.block as i32),
-    )));
-    cols.push(Arc::new(BinaryArray::from_iter(
-        rows.iter().map(|r| r.payload.as_deref()),
-    )));
-    cols.push(Arc::new(UInt32Array::from_iter(
-        rows.iter().map(|r| r.checksum),
-    )));
     RecordBatch::try_new(schema.clone(), cols).map_err(|e| e.to_string())
 }
 
-pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SegmentRow>) -> Result<(), String> {
+pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SliceRow>) -> Result<(), String> {
     let col = |name: &str| -> Result<&ArrayRef, String> {
         b.column_by_name(name)
             .ok_or_else(|| format!("column `{name}` is missing"))
@@ -318,7 +379,6 @@ pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SegmentRow>) -> Resul
         }
         Ok(c)
     };
-    let f32t = DataType::Float32;
     let i32t = DataType::Int32;
     let channel = typed("channel", &DataType::Utf8)?.as_string::<i32>();
     let start = col("start")?;
@@ -329,64 +389,59 @@ pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SegmentRow>) -> Resul
         other => return Err(format!("column `start` has type {other}")),
     };
     let samples = typed("samples", &i32t)?.as_primitive::<Int32Type>();
-    let basis = typed("basis", &DataType::Utf8)?.as_string::<i32>();
-    let order = typed("order", &i32t)?.as_primitive::<Int32Type>();
-    let cycles = typed("cycles", &i32t)?.as_primitive::<Int32Type>();
+    let block = typed("block", &i32t)?.as_primitive::<Int32Type>();
     let f = |n: &str| -> Result<&arrow::array::PrimitiveArray<Float32Type>, String> {
-        Ok(typed(n, &f32t)?.as_primitive::<Float32Type>())
+        Ok(typed(n, &DataType::Float32)?.as_primitive::<Float32Type>())
     };
-    let (budget, error, rate, fund, rms, thd) = (
-        f("budget_rms")?,
+    let (error, used, fund, rms, h1, thd) = (
         f("error_rms")?,
-        f("sample_rate_hz")?,
+        f("budget_use")?,
         f("fundamental_hz")?,
         f("rms")?,
+        f("h1_amp")?,
         f("thd")?,
     );
-    let mut harm = Vec::new();
-    for h in 1..=DERIVED_HARMONICS {
-        harm.push((f(&format!("h{h}_amp"))?, f(&format!("h{h}_phase"))?));
-    }
-    let block = typed("block", &i32t)?.as_primitive::<Int32Type>();
     let payload = typed("payload", &DataType::Binary)?.as_binary::<i32>();
-    let checksum = typed("checksum", &DataType::UInt32)?.as_primitive::<UInt32Type>();
     let opt = |a: &arrow::array::PrimitiveArray<Float32Type>, i: usize| {
         (!a.is_null(i)).then(|| a.value(i))
     };
     for i in 0..b.num_rows() {
-        let basis_name = basis.value(i);
-        let basis = Basis::from_name(basis_name)
-            .ok_or_else(|| format!("row {}: unknown basis `{basis_name}`", out.len()))?;
         let nonneg = |v: i32, what: &str| -> Result<u32, String> {
             u32::try_from(v).map_err(|_| format!("row {}: negative {what}", out.len()))
         };
-        out.push(SegmentRow {
+        let required = |a: &arrow::array::PrimitiveArray<Float32Type>, what: &str| {
+            opt(a, i).ok_or_else(|| format!("row {}: {what} is null", out.len()))
+        };
+        if channel.is_null(i) || start.is_null(i) || samples.is_null(i) || block.is_null(i) {
+            return Err(format!("row {}: a required column is null", out.len()));
+        }
+        // The payload is the frame followed by the block's CRC-32 (little-endian).
+        let (frame, checksum) = if payload.is_null(i) {
+            (None, None)
+        } else {
+            let p = payload.value(i);
+            let Some(cut) = p.len().checked_sub(4) else {
+                return Err(format!(
+                    "row {}: payload shorter than its checksum",
+                    out.len()
+                ));
+            };
+            let crc = u32::from_le_bytes([p[cut], p[cut + 1], p[cut + 2], p[cut + 3]]);
+            (Some(p[..cut].to_vec()), Some(crc))
+        };
+        out.push(SliceRow {
             channel: channel.value(i).to_string(),
-            seg: SegmentSummary {
-                start_ns: start.value(i),
-                samples: nonneg(samples.value(i), "samples")?,
-                basis,
-                order: if order.is_null(i) {
-                    None
-                } else {
-                    Some(nonneg(order.value(i), "order")?)
-                },
-                cycles: if cycles.is_null(i) {
-                    None
-                } else {
-                    Some(nonneg(cycles.value(i), "cycles")?)
-                },
-                budget_rms: budget.value(i),
-                error_rms: error.value(i),
-                sample_rate_hz: rate.value(i),
-                fundamental_hz: opt(fund, i),
-                rms: rms.value(i),
-                harmonics: harm.iter().map(|(a, p)| opt(a, i).zip(opt(p, i))).collect(),
-                thd: opt(thd, i),
-            },
+            start_ns: start.value(i),
+            samples: nonneg(samples.value(i), "samples")?,
             block: nonneg(block.value(i), "block")?,
-            payload: (!payload.is_null(i)).then(|| payload.value(i).to_vec()),
-            checksum: (!checksum.is_null(i)).then(|| checksum.value(i)),
+            error_rms: required(error, "error_rms")?,
+            budget_use: required(used, "budget_use")?,
+            fundamental_hz: opt(fund, i),
+            rms: required(rms, "rms")?,
+            h1_amp: opt(h1, i),
+            thd: opt(thd, i),
+            payload: frame,
+            checksum,
         });
     }
     Ok(())

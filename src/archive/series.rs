@@ -15,10 +15,64 @@ use crate::signal::Transform;
 pub struct UnpackedBlock {
     /// The block's rows in the archive.
     pub rows: std::ops::Range<usize>,
+    /// The archive row of each segment.
+    pub row_of: Vec<usize>,
     /// The unpacked block.
     pub block: Block,
     /// Its rebuilt segments.
     pub segments: Vec<DecodedSegment>,
+}
+
+/// What one segment of an archive is, as its block's frame says.
+#[derive(Debug, Clone, PartialEq, serde::Serialize)]
+pub struct SegmentInfo {
+    /// Channel.
+    pub channel: String,
+    /// Time of the first sample (ns since the epoch).
+    pub start_ns: i64,
+    /// Samples.
+    pub samples: usize,
+    /// Basis.
+    pub basis: &'static str,
+    /// Truncation order (Fourier bases).
+    pub order: Option<u32>,
+    /// Whole cycles (periodic segments).
+    pub cycles: Option<u32>,
+    /// Its archive row.
+    pub row: usize,
+}
+
+/// Every segment of the archive, in file order, from the frames (checked as by a decode,
+/// but not rebuilt).
+pub fn segment_list(archive: &Archive) -> Result<Vec<SegmentInfo>, crate::error::Error> {
+    use rayon::prelude::*;
+    let spans = block_spans(&archive.rows);
+    let read: Vec<_> = spans
+        .into_par_iter()
+        .map(|s| read_block(archive, s))
+        .collect();
+    let mut out = Vec::new();
+    for r in read {
+        let (block, row_of) = r.map_err(|reason| crate::error::Error::Damaged {
+            file: archive.path.clone(),
+            reason,
+        })?;
+        let mut offset = 0usize;
+        for (s, &row) in block.segments.iter().zip(&row_of) {
+            let fourier = matches!(s.basis, Basis::Fourier | Basis::Trend);
+            out.push(SegmentInfo {
+                channel: archive.rows[row].channel.clone(),
+                start_ns: block.times.time(offset),
+                samples: s.len,
+                basis: s.basis.name(),
+                order: fourier.then_some(s.order),
+                cycles: (s.cycles > 0).then_some(s.cycles),
+                row,
+            });
+            offset += s.len;
+        }
+    }
+    Ok(out)
 }
 
 /// Check a block's checksum, unpack it, cross-check it with its rows, and rebuild it.
@@ -27,6 +81,23 @@ pub fn unpack_block(
     rows: std::ops::Range<usize>,
     fft: &dyn Transform,
 ) -> Result<UnpackedBlock, String> {
+    let (block, row_of) = read_block(archive, rows.clone())?;
+    let id = archive.rows[rows.start].block;
+    let segments = rebuild_block(&block, fft).map_err(|e| format!("block {id}: {e}"))?;
+    Ok(UnpackedBlock {
+        rows,
+        row_of,
+        block,
+        segments,
+    })
+}
+
+/// Check a block's checksum, unpack its frame and cross-check it with its rows; returns the
+/// block and the archive row of each of its segments.
+fn read_block(
+    archive: &Archive,
+    rows: std::ops::Range<usize>,
+) -> Result<(Block, Vec<usize>), String> {
     let all = &archive.rows[rows.clone()];
     let first = &all[0];
     let id = first.block;
@@ -59,43 +130,49 @@ pub fn unpack_block(
     if block.value_type != channel.value_type {
         return Err(format!("block {id}: value type differs from the metadata"));
     }
-    if block.segments.len() != all.len() {
-        return Err(format!(
-            "block {id}: {} segments in the payload, {} rows",
-            block.segments.len(),
-            all.len()
-        ));
-    }
+    // Each row covers whole consecutive segments: its samples end on a segment boundary and
+    // it starts at its first segment's first sample.
+    let mut row_of = Vec::with_capacity(block.segments.len());
     let mut offset = 0usize;
-    for (r, s) in all.iter().zip(&block.segments) {
-        let order_ok = match s.basis {
-            Basis::Fourier | Basis::Trend => r.seg.order == Some(s.order),
-            _ => r.seg.order.is_none(),
+    let mut segs = block.segments.iter().peekable();
+    for (ri, r) in all.iter().enumerate() {
+        let disagrees = || {
+            format!(
+                "block {id}: row at {} ns disagrees with the payload",
+                r.start_ns
+            )
         };
         if r.channel != first.channel
-            || r.seg.samples as usize != s.len
-            || r.seg.basis != s.basis
-            || !order_ok
-            || r.seg.start_ns != block.times.time(offset)
+            || r.samples == 0
+            || segs.peek().is_none()
+            || r.start_ns != block.times.time(offset)
         {
-            return Err(format!(
-                "block {id}: row for segment at {} ns disagrees with the payload",
-                r.seg.start_ns
-            ));
+            return Err(disagrees());
         }
-        offset += s.len;
+        let mut covered = 0usize;
+        while covered < r.samples as usize {
+            let Some(s) = segs.next() else {
+                return Err(disagrees());
+            };
+            covered += s.len;
+            row_of.push(rows.start + ri);
+        }
+        if covered != r.samples as usize {
+            return Err(disagrees());
+        }
+        offset += covered;
+    }
+    if segs.next().is_some() {
+        return Err(format!(
+            "block {id}: the payload has segments beyond its rows"
+        ));
     }
     if !block.times.residuals.is_empty() && block.times.residuals.len() != offset {
         return Err(format!(
             "block {id}: timestamp residuals do not cover the block"
         ));
     }
-    let segments = rebuild_block(&block, fft).map_err(|e| format!("block {id}: {e}"))?;
-    Ok(UnpackedBlock {
-        rows,
-        block,
-        segments,
-    })
+    Ok((block, row_of))
 }
 
 /// Decode the selected channels (all when `channels` is empty), keeping samples with
@@ -175,8 +252,8 @@ fn decode_selected(
             (Some(f), Some(&n)) => n <= f,
             _ => false,
         };
-        next_start.insert(row.channel.as_str(), row.seg.start_ns);
-        if !before_from && to.is_none_or(|t| row.seg.start_ns < t) {
+        next_start.insert(row.channel.as_str(), row.start_ns);
+        if !before_from && to.is_none_or(|t| row.start_ns < t) {
             selected.push(s);
         }
     }
@@ -198,9 +275,9 @@ fn decode_selected(
                         "left out, {} rows from {} ns: {reason}",
                         archive.rows[span]
                             .iter()
-                            .map(|r| r.seg.samples as u64)
+                            .map(|r| r.samples as u64)
                             .sum::<u64>(),
-                        row.seg.start_ns
+                        row.start_ns
                     ),
                 });
             }
@@ -220,7 +297,7 @@ fn decode_selected(
             continue;
         };
         let mut offset = 0usize;
-        for (row, seg) in ub.rows.clone().zip(&ub.segments) {
+        for (&row, seg) in ub.row_of.iter().zip(&ub.segments) {
             let begin = series.times.len();
             let mut sp = seg.specials.iter().peekable();
             for (i, &v) in seg.values.iter().enumerate() {

@@ -11,9 +11,9 @@ use parquet::arrow::arrow_writer::ArrowWriterOptions;
 use parquet::arrow::ArrowWriter;
 use parquet::file::metadata::KeyValue;
 
-use crate::archive::meta::{ArchiveMeta, FORMAT_VERSION, KEY_FORMAT, KEY_META, KEY_META_CRC};
+use crate::archive::meta::{pack_meta, ArchiveMeta, FORMAT_VERSION, KEY_FORMAT, KEY_META};
 use crate::archive::schema::{
-    archive_schema, block_checksum, rows_to_batch, writer_properties, SegmentRow,
+    archive_schema, block_checksum, rows_to_batch, slice_rows, writer_properties, SliceRow,
 };
 use crate::codec::EncodedBlock;
 use crate::error::{Error, Result};
@@ -31,9 +31,12 @@ const WRITE_BATCH_ROWS: usize = 65_536;
 pub struct ArchiveWriter {
     out: PathBuf,
     tmp: PathBuf,
+    /// The temporary file, until the first rows are written.
+    file: Option<File>,
+    /// The Parquet writer, from the first rows on.
     writer: Option<ArrowWriter<File>>,
     schema: Arc<Schema>,
-    pending: Vec<SegmentRow>,
+    pending: Vec<SliceRow>,
     next_block: u32,
     rows: u64,
     /// Blocks written per channel, recorded in the metadata.
@@ -51,33 +54,11 @@ impl ArchiveWriter {
             source: e,
         })?;
         let schema = Arc::new(archive_schema());
-        let writer =
-            // No embedded Arrow schema: the Parquet logical types already say everything a
-            // reader needs (UTC nanosecond times, unsigned checksums), and it cost 1.6 kB.
-            ArrowWriter::try_new_with_options(
-                file,
-                schema.clone(),
-                ArrowWriterOptions::new()
-                    .with_properties(writer_properties())
-                    .with_skip_arrow_metadata(true),
-            )
-            .map_err(|e| {
-                Error::WriteParquet {
-                    file: out.to_path_buf(),
-                    reason: e.to_string(),
-                }
-            });
-        let writer = match writer {
-            Ok(w) => w,
-            Err(e) => {
-                let _ = std::fs::remove_file(&tmp);
-                return Err(e);
-            }
-        };
         Ok(ArchiveWriter {
             out: out.to_path_buf(),
             tmp,
-            writer: Some(writer),
+            file: Some(file),
+            writer: None,
             schema,
             pending: Vec::new(),
             next_block: 0,
@@ -96,17 +77,7 @@ impl ArchiveWriter {
     /// Append one block (its rows get the next block number).
     pub fn push(&mut self, b: EncodedBlock) -> Result<()> {
         let block = self.next_block;
-        let rows: Vec<SegmentRow> = b
-            .segments
-            .into_iter()
-            .map(|seg| SegmentRow {
-                channel: b.channel.clone(),
-                seg,
-                block,
-                payload: None,
-                checksum: None,
-            })
-            .collect();
+        let rows = slice_rows(&b.channel, block, &b.segments);
         *self.blocks_of.entry(b.channel).or_default() += 1;
         let crc = block_checksum(&b.frame, &rows);
         let mut frame = Some(b.frame);
@@ -125,6 +96,23 @@ impl ArchiveWriter {
     }
 
     fn write_pending(&mut self) -> Result<()> {
+        if self.writer.is_none() {
+            let file = self
+                .file
+                .take()
+                .ok_or_else(|| self.perr("writer already closed"))?;
+            // No embedded Arrow schema: the Parquet logical types already say everything a
+            // reader needs (UTC nanosecond times), and it cost 1.6 kB.
+            let w = ArrowWriter::try_new_with_options(
+                file,
+                self.schema.clone(),
+                ArrowWriterOptions::new()
+                    .with_properties(writer_properties())
+                    .with_skip_arrow_metadata(true),
+            )
+            .map_err(|e| self.perr(e))?;
+            self.writer = Some(w);
+        }
         if self.pending.is_empty() {
             return Ok(());
         }
@@ -149,17 +137,13 @@ impl ArchiveWriter {
         for c in &mut meta.channels {
             c.blocks = Some(self.blocks_of.get(&c.name).copied().unwrap_or(0));
         }
-        let meta_json = serde_json::to_string(&meta).map_err(|e| self.perr(e))?;
+        let meta_value = pack_meta(&meta).map_err(|e| self.perr(e))?;
         let mut w = self
             .writer
             .take()
             .ok_or_else(|| self.perr("writer already closed"))?;
         w.append_key_value_metadata(KeyValue::new(KEY_FORMAT.into(), FORMAT_VERSION.to_string()));
-        w.append_key_value_metadata(KeyValue::new(
-            KEY_META_CRC.into(),
-            format!("{:08x}", crc32fast::hash(meta_json.as_bytes())),
-        ));
-        w.append_key_value_metadata(KeyValue::new(KEY_META.into(), meta_json));
+        w.append_key_value_metadata(KeyValue::new(KEY_META.into(), meta_value));
         let result = (|| {
             let file = w.into_inner().map_err(|e| self.perr(e))?;
             let werr = |e: std::io::Error| Error::Write {
@@ -211,9 +195,10 @@ impl ArchiveWriter {
 
 impl Drop for ArchiveWriter {
     fn drop(&mut self) {
-        if self.writer.is_some() {
+        if self.writer.is_some() || self.file.is_some() {
             // Not finished: publish nothing.
             self.writer = None;
+            self.file = None;
             let _ = std::fs::remove_file(&self.tmp);
         }
     }

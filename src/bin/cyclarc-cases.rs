@@ -6,8 +6,10 @@
 //! cargo run --release --features tools --bin cyclarc-cases -- [--only NAME] [--keep DIR]
 //! ```
 //!
-//! Per case and budget: the archive's bytes (what `cyclarc encode` writes) and its payload,
-//! the bytes of the time-domain quantizer (step √12·ε, delta, zigzag, zstd -19, on the same
+//! Per case and budget: the archive's bytes (what `cyclarc encode` writes) and its payload
+//! (the frames), the segments and the bytes per segment that are not payload, the payload over
+//! the order-0 entropy of the integer codes it holds (`pay/H0`; lossless raw words and headers
+//! are in the payload but not in H0), the bytes of the time-domain quantizer (step √12·ε, delta, zigzag, zstd -19, on the same
 //! per-segment budgets: [`cyclarc::baseline::time_domain_bytes`]) and of the Gaussian
 //! rate-distortion reference, their ratios, and the fundamental each channel was coded at.
 //! Nothing is asserted; the tests hold the properties, this reports the sizes.
@@ -275,13 +277,31 @@ fn baselines(path: &Path, s: &Settings) -> Result<(usize, f64)> {
     Ok((td, rd))
 }
 
-fn payload_bytes(archive: &Path) -> Result<usize> {
+/// The archive's frame bytes, its segments, and the empirical order-0 entropy (bytes) of the
+/// integer codes its frames hold (Shannon, one histogram over the whole archive).
+fn payload_bytes(archive: &Path) -> Result<(usize, usize, f64)> {
     let a = Archive::open(archive, DigestPolicy::Skip)?;
-    Ok(a.rows
-        .iter()
-        .filter_map(|r| r.payload.as_ref())
-        .map(Vec::len)
-        .sum())
+    let mut frames = 0;
+    let mut hist: std::collections::HashMap<i64, u64> = Default::default();
+    for f in a.rows.iter().filter_map(|r| r.payload.as_ref()) {
+        frames += f.len();
+        let block = cyclarc::codec::parse::decode_block(f)?;
+        for s in &block.segments {
+            for &c in &s.codes {
+                *hist.entry(c).or_default() += 1;
+            }
+        }
+    }
+    let n: u64 = hist.values().sum();
+    let bits: f64 = hist
+        .values()
+        .map(|&k| k as f64 * (n as f64 / k as f64).log2())
+        .sum();
+    Ok((
+        frames,
+        cyclarc::archive::segment_list(&a)?.len(),
+        bits / 8.0,
+    ))
 }
 
 fn main() -> Result<()> {
@@ -332,8 +352,18 @@ fn main() -> Result<()> {
         cases.push((name.to_string(), data.join(file), budgets.to_vec()));
     }
     println!(
-        "{:<36} {:>6} {:>10} {:>10} {:>10} {:>7} {:>7} {:>8}  fundamental (Hz, confidence)",
-        "case", "budget", "archive B", "payload B", "(c) B", "(c)/arc", "(c)/pay", "pay/R(D)"
+        "{:<36} {:>6} {:>10} {:>10} {:>6} {:>9} {:>7} {:>10} {:>7} {:>7} {:>8}  fundamental (Hz, confidence)",
+        "case",
+        "budget",
+        "archive B",
+        "payload B",
+        "segs",
+        "other B/s",
+        "pay/H0",
+        "(c) B",
+        "(c)/arc",
+        "(c)/pay",
+        "pay/R(D)"
     );
     for (name, src, budgets) in cases {
         for b in budgets {
@@ -345,7 +375,7 @@ fn main() -> Result<()> {
             let arc = dir.join("case.cyclarc.parquet");
             let summary = encode_file(&src, &arc, &s, &JobControl { progress: false })
                 .with_context(|| format!("encoding {}", src.display()))?;
-            let payload = payload_bytes(&arc)?;
+            let (payload, segments, h0) = payload_bytes(&arc)?;
             let (td, rd) = baselines(&src, &s)?;
             let f: Vec<String> = summary
                 .fundamentals
@@ -359,11 +389,14 @@ fn main() -> Result<()> {
                 })
                 .collect();
             println!(
-                "{:<36} {:>5.1}% {:>10} {:>10} {:>10} {:>6.2}x {:>6.2}x {:>7.2}x  {}",
+                "{:<36} {:>5.1}% {:>10} {:>10} {:>6} {:>9.2} {:>7.3} {:>10} {:>6.2}x {:>6.2}x {:>7.2}x  {}",
                 name,
                 100.0 * b,
                 summary.archive_bytes,
                 payload,
+                segments,
+                (summary.archive_bytes as f64 - payload as f64) / segments.max(1) as f64,
+                payload as f64 / h0.max(1.0),
                 td,
                 td as f64 / summary.archive_bytes as f64,
                 td as f64 / payload as f64,

@@ -19,8 +19,8 @@ use crate::codec::segment::{
 use crate::model::{Basis, Run, ValueType};
 use crate::signal::{amplitude_phase, rms_of, thd, Transform};
 
-/// Harmonics whose amplitude and phase become derived columns.
-pub const DERIVED_HARMONICS: usize = 3;
+/// Harmonics whose amplitude is summarized per archive row (`h1_amp`).
+pub const DERIVED_HARMONICS: usize = 1;
 
 /// Highest harmonic counted in the THD column (IEEE 519 counts up to the 50th).
 pub const THD_MAX_HARMONIC: usize = 50;

@@ -1,7 +1,7 @@
 //! The codec's parameters: budgets and their resolution per segment, segmentation, block
 //! sizes and the zstd level. Filled once from the options; the codec reads nothing else.
 
-use serde::Serialize;
+use serde::{Deserialize, Serialize};
 
 use crate::codec::segment::{
     FundamentalSetting, SegmentSettings, DEFAULT_FALLBACK_SEGMENT_SECONDS, DEFAULT_MIN_CONFIDENCE,
@@ -21,7 +21,7 @@ pub const DEFAULT_BLOCK_SAMPLES: usize = 1 << 18;
 pub const DEFAULT_BUDGET_REL: f64 = 0.005;
 
 /// A resolved budget rule.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
 pub enum Budget {
     /// ε = value (channel units).
     Absolute(f64),

@@ -57,7 +57,10 @@ impl ChannelEncoder {
     fn new(source: &Path, info: ChannelInfo, settings: &Settings) -> Self {
         ChannelEncoder {
             asm: ChannelAssembler::new(source, &info.name, settings.source.sample_rate_hz),
-            meta: ChannelMeta::new(&info, None, 0, 0, false),
+            meta: ChannelMeta {
+                budget: Some(settings.codec.budget_for(&info.name)),
+                ..ChannelMeta::new(&info, None, 0, 0, false)
+            },
             info,
             run: None,
             last_time: None,

@@ -11,7 +11,8 @@ use std::path::{Path, PathBuf};
 
 use serde::Serialize;
 
-use crate::archive::{decode_channels, Archive, DigestPolicy, DigestState};
+use crate::archive::{decode_channels, Archive, ChannelMeta, DigestPolicy, DigestState};
+use crate::codec::encode::finite_rms;
 use crate::error::{Error, Result};
 use crate::fsio::sha256_file;
 use crate::model::{ChannelSeries, SpecialKind, ValueType};
@@ -151,13 +152,7 @@ pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result
             ));
             continue;
         };
-        channels.push(check_channel(
-            &archive,
-            cm.value_type,
-            src,
-            dec,
-            &mut findings,
-        ));
+        channels.push(check_channel(&archive, cm, src, dec, &mut findings));
     }
     for name in sources.keys() {
         if !archive.meta.channels.iter().any(|c| &c.name == name) {
@@ -230,7 +225,7 @@ fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, 
 
 fn check_channel(
     archive: &Archive,
-    value_type: ValueType,
+    cm: &ChannelMeta,
     src: &ChannelSeries,
     dec: &ChannelSeries,
     findings: &mut Vec<Finding>,
@@ -262,7 +257,7 @@ fn check_channel(
         ));
         return check;
     }
-    if !same_specials(&src.specials, &dec.specials, value_type) {
+    if !same_specials(&src.specials, &dec.specials, cm.value_type) {
         findings.push(finding(
             Some(name),
             None,
@@ -280,7 +275,18 @@ fn check_channel(
         let max_abs = (0..range.len())
             .filter_map(error_at)
             .fold(0.0f64, |m, e| m.max(e.abs()));
-        let budget = r.seg.budget_rms as f64;
+        // The budget the encoder promised: the channel's rule on the source segment's RMS.
+        let Some(Ok(budget)) = cm
+            .budget
+            .map(|b| b.resolve(finite_rms(&src.values[range.clone()])))
+        else {
+            findings.push(finding(
+                Some(name),
+                Some(r.start_ns),
+                "the archive records no budget rule the segment's budget resolves from".into(),
+            ));
+            continue;
+        };
         check.worst_error_rms = check.worst_error_rms.max(err);
         check.max_abs_error = check.max_abs_error.max(max_abs);
         if budget > 0.0 {
@@ -289,18 +295,20 @@ fn check_channel(
         if !(err <= budget) {
             findings.push(finding(
                 Some(name),
-                Some(r.seg.start_ns),
+                Some(r.start_ns),
                 format!("RMS error {err:.6e} exceeds the budget {budget:.6e}"),
             ));
-        } else if !(err
-            <= r.seg.error_rms as f64 * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE)
+        } else if !(err <= r.error_rms as f64 * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE)
+            || (budget > 0.0
+                && !(err / budget <= r.budget_use as f64 * (1.0 + RECORDED_ERROR_SLACK)))
         {
             findings.push(finding(
                 Some(name),
-                Some(r.seg.start_ns),
+                Some(r.start_ns),
                 format!(
-                    "RMS error {err:.6e} is above the recorded {:.6e}",
-                    r.seg.error_rms
+                    "RMS error {err:.6e} (budget {budget:.6e}) is above what its row records \
+                     (error {:.6e}, error/budget {:.6e})",
+                    r.error_rms, r.budget_use
                 ),
             ));
         }

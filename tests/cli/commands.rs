@@ -241,22 +241,25 @@ fn fundamental_hz_and_cycles_per_segment_are_used() {
     .expect(0);
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
+    let segs = archive_segments(&arch);
     let rows = archive_rows(&arch);
     for name in ["ia", "ib", "ic"] {
-        let r: Vec<&ArchiveRow> = rows.iter().filter(|r| r.channel == name).collect();
+        let g: Vec<&SegmentEntry> = segs.iter().filter(|g| g.channel == name).collect();
         // 4 cycles of 50 Hz at 10 kHz = 800 samples; 6000 = 7 × 800 + 400.
-        let lens: Vec<usize> = r.iter().map(|r| r.samples).collect();
+        let lens: Vec<usize> = g.iter().map(|g| g.samples).collect();
         let mut want = vec![800; 7];
         want.push(400);
         assert_eq!(lens, want, "{name}: K·fs/f0 samples per segment");
         // The tail shorter than K cycles is a segment of its own (segment module docs).
-        for x in &r[..r.len() - 1] {
+        for x in &g[..g.len() - 1] {
+            assert_eq!(x.cycles, Some(4), "{name}: the user's cycles");
+        }
+        for r in rows.iter().filter(|r| r.channel == name) {
             assert_eq!(
-                x.fundamental_hz,
+                r.fundamental_hz,
                 Some(50.0),
                 "{name}: the user's fundamental"
             );
-            assert_eq!(x.cycles, Some(4), "{name}: the user's cycles");
         }
     }
     let meta = archive_meta(&arch);
@@ -276,25 +279,34 @@ fn estimated_fundamental_gives_cycles_spanning_200_ms_or_a_multiple() {
     wide_source(&src);
     let arch = s.path("a.parquet");
     s.run(&["encode", ps(&src), "--out", ps(&arch)]).expect(0);
-    let rows = archive_rows(&arch);
+    let segs = archive_segments(&arch);
     // Every segment but each channel's tail (shorter than K cycles, a segment of its own).
     let tails: Vec<usize> = ["ia", "ib", "ic"]
         .iter()
-        .map(|n| rows.iter().rposition(|r| &r.channel == n).expect("rows"))
+        .map(|n| {
+            segs.iter()
+                .rposition(|g| &g.channel == n)
+                .expect("segments")
+        })
         .collect();
-    for (i, r) in rows.iter().enumerate() {
+    for (i, g) in segs.iter().enumerate() {
         if tails.contains(&i) {
             continue;
         }
         assert!(
-            matches!(r.cycles, Some(10 | 20 | 40 | 160 | 640)),
+            matches!(g.cycles, Some(10 | 20 | 40 | 160 | 640)),
             "{} at {}: {:?} cycles",
-            r.channel,
-            r.start,
-            r.cycles
+            g.channel,
+            g.start,
+            g.cycles
         );
-        let first = rows.iter().find(|o| o.channel == r.channel).expect("row");
-        assert_eq!(r.cycles, first.cycles, "one K per channel");
+        let first = segs
+            .iter()
+            .find(|o| o.channel == g.channel)
+            .expect("segment");
+        assert_eq!(g.cycles, first.cycles, "one K per channel");
+    }
+    for r in archive_rows(&arch) {
         // The synthetic tone is exactly 48 Hz; 1 % is far below the 1.7 Hz bin of a 0.6 s
         // window, which the estimator refines below one bin.
         let f = r.fundamental_hz.expect("periodic") as f64;
@@ -319,10 +331,12 @@ fn fundamental_none_cuts_200_ms_blocks() {
     s.encode(&src, &arch, &["--fundamental", "none"]).expect(0);
     s.run(&["verify", ps(&arch), "--source", ps(&src)])
         .expect(0);
-    for r in archive_rows(&arch) {
+    for g in archive_segments(&arch) {
         // README: `--fundamental none` (fixed 200 ms segments): 2000 samples at 10 kHz.
-        assert_eq!(r.samples, 2000);
-        assert_eq!(r.cycles, None);
+        assert_eq!(g.samples, 2000);
+        assert_eq!(g.cycles, None);
+    }
+    for r in archive_rows(&arch) {
         assert_eq!(r.fundamental_hz, None);
     }
 }
@@ -337,10 +351,10 @@ fn json_outputs_parse_and_agree_with_the_files() {
     let (arch, dec) = (s.path("a.parquet"), s.path("d.parquet"));
     let e = s.encode(&src, &arch, &["--json"]);
     let ej = e.expect(0).json();
-    let rows = archive_rows(&arch);
+    let segs = archive_segments(&arch);
     assert_eq!(ej["rows"], (3 * N) as u64, "rows: the source's");
     assert_eq!(ej["channels"], 3);
-    assert_eq!(ej["segments"], rows.len() as u64, "segments: archive rows");
+    assert_eq!(ej["segments"], segs.len() as u64, "segments: the archive's");
     assert_eq!(
         ej["archive_bytes"],
         std::fs::metadata(&arch).expect("archive").len()

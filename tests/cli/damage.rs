@@ -13,6 +13,7 @@ use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
 use std::time::{Duration, Instant};
 
+use crate::support::archive::{archive_kv, pack_meta, unpack_meta};
 use crate::support::rows::*;
 use crate::support::*;
 use arrow::array::{ArrayRef, Float32Array, Int16Array, RecordBatch};
@@ -214,49 +215,40 @@ fn damaged_cyclarc_metadata_is_reported() {
     let (src, arch, clean) = archived(&lab);
     let good = std::fs::read(&arch).expect("archive");
     let dp = digest_of(&arch);
-    let meta = find(
-        &good,
-        format!("{{\"format\":\"{}\"", cyclarc::archive::FORMAT_VERSION).as_bytes(),
-    )
-    .expect("cyclarc.meta JSON in the footer");
-    let vt = meta + find(&good[meta..], b"\"value_type\":\"f32\"").expect("a value type") + 14;
-    let chan = meta + find(&good[meta..], b"\"name\":\"accel\"").expect("a channel name") + 8;
+    // cyclarc.meta is base64 of a zstd frame with its content checksum: a changed byte is
+    // not base64, or breaks the frame, or fails the checksum; the format key is read first.
+    let packed = archive_kv(&arch)
+        .remove("cyclarc.meta")
+        .expect("cyclarc.meta");
+    let meta = find(&good, packed.as_bytes()).expect("cyclarc.meta value in the footer");
     let key = find(&good, b"cyclarc.format").expect("format key");
     let version = key
         + find(&good[key..], cyclarc::archive::FORMAT_VERSION.as_bytes()).expect("format value");
-    let rate = meta + find(&good[meta..], b"\"sample_rate_hz\":2000.0").expect("rate") + 17;
-    // cyclarc.meta carries its own CRC-32 (cyclarc.meta.crc32): any change to the JSON is
-    // caught by the reader; the format key beside it is read first.
-    let crc = ["damaged archive", "metadata checksum mismatch"];
+    let bad_meta = ["damaged archive", "metadata"];
     let cases: [(&str, usize, u8, &[&str]); 6] = [
-        // JSON structure broken: `{` → `z`.
-        ("structure", meta, 0, &crc),
-        // `"f32"` → `"f12"`: an unknown value type.
-        ("value type", vt + 1, 6, &crc),
-        // `accel` → `ascel`: a channel renamed.
-        ("channel name", chan + 1, 4, &crc),
-        // The recorded sample rate, a field decode does not even use.
-        ("sample rate", rate, 0, &crc),
-        // `1.0` → `0.0`: no such version.
+        // The first character: `K` of the zstd magic's base64 → another letter.
+        ("start", meta, 0, &bad_meta),
+        ("early", meta + 9, 1, &bad_meta),
+        ("middle", meta + packed.len() / 2, 2, &bad_meta),
+        // The end: inside the content checksum.
+        ("end", meta + packed.len() - 3, 0, &bad_meta),
+        // `2.0` → `0.0`: no such version.
         (
             "format 0",
             version,
-            0,
+            1,
             &["damaged archive", "format version"],
         ),
-        // `1.0` → `3.0`: looks newer; only the digest can tell it is damage.
+        // `2.0` → `3.0`: looks newer; only the digest can tell it is damage.
         (
             "format 3",
             version,
-            1,
+            0,
             &["newer than this cyclarc understands"],
         ),
     ];
     for (what, at, bit, says) in cases {
         let bad = flip_bit(&good, at, bit);
-        if what == "structure" {
-            assert_eq!(bad[at], b'z', "flipped `{{` into `z`");
-        }
         std::fs::write(&arch, &bad).expect("write");
         // With the digest: damage, exit 1, for verify and decode alike.
         lab.run(&["verify", ps(&arch), "--source", ps(&src)])
@@ -310,7 +302,7 @@ fn truncated_archives_fail_verify_decode_and_inspect() {
 
 /// Rewrite an archive as a writer of format `version` would: the same rows (plus `extra`
 /// columns), `cyclarc.format` and the metadata's `format` set to `version`, an extra metadata
-/// field, the metadata's CRC-32, and a matching digest beside it.
+/// field, and a matching digest beside it.
 fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
     let kv = key_values(arch);
     let meta = kv
@@ -318,7 +310,7 @@ fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
         .find(|e| e.key == "cyclarc.meta")
         .and_then(|e| e.value.clone())
         .expect("cyclarc.meta");
-    let mut meta: serde_json::Value = serde_json::from_str(&meta).expect("JSON");
+    let mut meta: serde_json::Value = serde_json::from_slice(&unpack_meta(&meta)).expect("JSON");
     meta["format"] = version.into();
     meta["written_by_a_later_version"] = serde_json::json!({"note": "a field this build ignores"});
     let rows = read_table(arch).batch;
@@ -337,13 +329,9 @@ fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
         ])));
     }
     let batch = RecordBatch::try_new(Arc::new(Schema::new(fields)), cols).expect("batch");
-    let meta = meta.to_string();
+    let meta = pack_meta(meta.to_string().as_bytes());
     let kv = vec![
         KeyValue::new("cyclarc.format".into(), version.to_string()),
-        KeyValue::new(
-            "cyclarc.meta.crc32".into(),
-            format!("{:08x}", crc32fast::hash(meta.as_bytes())),
-        ),
         KeyValue::new("cyclarc.meta".into(), meta),
     ];
     write_parquet_with(out, &batch, None, kv);
@@ -359,8 +347,8 @@ fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
 fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
     let lab = Lab::new();
     let (src, arch, clean) = archived(&lab);
-    let v2 = lab.path("v2.cyclarc.parquet");
-    rewrite_as(&arch, &v2, "2.0", false);
+    let v2 = lab.path("v3.cyclarc.parquet");
+    rewrite_as(&arch, &v2, "3.0", false);
     let out = lab.path("d.parquet");
     for args in [
         vec!["decode", ps(&v2), "--out", ps(&out)],
@@ -372,15 +360,27 @@ fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
             &args,
             2,
             &[
-                "v2.cyclarc.parquet",
-                "archive format 2.0 is newer than this cyclarc understands (1)",
+                "v3.cyclarc.parquet",
+                "archive format 3.0 is newer than this cyclarc understands (2)",
                 "upgrade cyclarc",
             ],
         );
     }
-    // 1.7: an added column and an added metadata field; this build reads what it knows.
-    let v17 = lab.path("v17.cyclarc.parquet");
-    rewrite_as(&arch, &v17, "1.7", true);
+    // 1.2: the per-segment rows of cyclarc 0.1, refused with what to do.
+    let v1 = lab.path("v1.cyclarc.parquet");
+    rewrite_as(&arch, &v1, "1.2", false);
+    assert_refused(
+        &lab,
+        &["inspect", ps(&v1)],
+        2,
+        &[
+            "v1.cyclarc.parquet",
+            "archive format 1.2 was written by cyclarc 0.1",
+        ],
+    );
+    // 2.7: an added column and an added metadata field; this build reads what it knows.
+    let v17 = lab.path("v27.cyclarc.parquet");
+    rewrite_as(&arch, &v17, "2.7", true);
     lab.run(&["verify", ps(&v17), "--source", ps(&src)])
         .expect(0);
     lab.run(&["decode", ps(&v17), "--out", ps(&out)]).expect(0);

@@ -8,7 +8,6 @@
 use std::path::{Path, PathBuf};
 
 use crate::support::archive::*;
-use crate::support::series::*;
 use crate::support::source::*;
 use crate::support::*;
 use arrow::datatypes::TimeUnit;
@@ -156,12 +155,17 @@ fn run_archives_skips_reruns_rearchives_on_change_and_reports_a_bad_input() {
     }
     s.run(&["verify", ps(&va), "--source", ps(&vib)]).expect(0);
     s.run(&["verify", ps(&ca), "--source", ps(&cur)]).expect(0);
-    // The budget rule for accelerometers applied (absolute 0.002, stored rounded down).
-    assert!(archive_rows(&va)
-        .iter()
-        .all(|r| r.budget_rms == f32_down(0.002)));
+    // The budget rule for accelerometers applied (absolute 0.002), recorded per channel.
+    for ch in archive_meta(&va)["channels"].as_array().expect("channels") {
+        assert_eq!(
+            ch["budget"],
+            serde_json::json!({ "Absolute": 0.002 }),
+            "{ch}"
+        );
+    }
     let (vh, ch) = (sha256(&va), sha256(&ca));
     let narrow = archive_rows(&ca);
+    let narrow_rule = archive_meta(&ca)["channels"][0]["budget"].clone();
 
     // Second run: both skipped (text on stderr), the bad one still reported.
     let r2 = s.run(&["run", ps(&pipe)]);
@@ -194,19 +198,19 @@ fn run_archives_skips_reruns_rearchives_on_change_and_reports_a_bad_input() {
         ])
     );
     assert!(sha256(&ca) != ch, "current re-archived with a wider budget");
-    // The same segments, each with twice the budget (0.01 vs 0.005 of the same RMS; both far
-    // above the floor), up to the f32 rounding of each.
+    // The same rows, each segment with twice the budget (0.01 vs 0.005 of the same RMS).
     let wider = archive_rows(&ca);
     assert_eq!(wider.len(), narrow.len());
     for (w, n) in wider.iter().zip(&narrow) {
         assert_eq!((w.start, w.samples), (n.start, n.samples));
-        let ratio = w.budget_rms as f64 / n.budget_rms as f64;
-        assert!(
-            (ratio - 2.0).abs() < 1e-6,
-            "budget ratio {ratio} at {}",
-            w.start
-        );
     }
+    let rule = |m: &serde_json::Value| m["Relative"]["fraction"].as_f64().expect("relative");
+    let wider_rule = archive_meta(&ca)["channels"][0]["budget"].clone();
+    assert_eq!(
+        rule(&wider_rule),
+        2.0 * rule(&narrow_rule),
+        "{wider_rule} vs {narrow_rule}"
+    );
 
     // The bad file fixed (removed): everything skipped, exit 0.
     std::fs::remove_file(&bad).expect("rm");

@@ -10,6 +10,7 @@ use std::path::Path;
 use std::process::Command;
 use std::sync::Arc;
 
+use crate::support::archive::archive_meta;
 use crate::support::rows::*;
 use crate::support::*;
 use arrow::array::{ArrayRef, AsArray, RecordBatch, TimestampMillisecondArray, UInt32Array};
@@ -374,6 +375,8 @@ fn a_missing_repeated_or_dropped_block_is_reported_by_channel_and_number() {
 // ───────────── 4. a tiny error is never recorded as 0 ─────────────
 
 /// The recorded `error_rms` and `budget_rms` per segment, with the segment's sample count.
+/// Per archive row: its recorded error (the largest of its segments), error over budget, and
+/// samples.
 fn recorded(arch: &Path) -> Vec<(f32, f32, i32)> {
     let f = std::fs::File::open(arch).expect("archive");
     let r = ParquetRecordBatchReaderBuilder::try_new(f)
@@ -385,7 +388,7 @@ fn recorded(arch: &Path) -> Vec<(f32, f32, i32)> {
         let b = b.expect("batch");
         let e = b.column_by_name("error_rms").expect("error_rms");
         let e = e.as_primitive::<Float32Type>();
-        let bu = b.column_by_name("budget_rms").expect("budget_rms");
+        let bu = b.column_by_name("budget_use").expect("budget_use");
         let bu = bu.as_primitive::<Float32Type>();
         let n = b.column_by_name("samples").expect("samples");
         let n = n.as_primitive::<Int32Type>();
@@ -659,13 +662,26 @@ fn budgets_beyond_f32_are_refused_not_changed() {
     );
     // An absolute budget on the same values round-trips within it.
     let arch = round_trip(&lab, &huge, &["--budget-rms", "1e30"], Bound::Abs(1e30));
-    // Recorded as the f32 at or below 1e30, within one f32 step (2⁻²³ relative).
-    for (err, budget, _) in recorded(&arch) {
-        let b = budget as f64;
-        assert!(
-            b <= 1e30 && b > 1e30 * (1.0 - 2f64.powi(-23)),
-            "budget {budget}"
+    // The rule is recorded as asked; every row's error is within the f32 at or below 1e30,
+    // and its recorded error over budget at most 1 (rounded up to 16 bits: 2⁻¹⁶).
+    let budget = 1e30f32;
+    let budget = if budget as f64 > 1e30 {
+        budget.next_down()
+    } else {
+        budget
+    };
+    for ch in archive_meta(&arch)["channels"]
+        .as_array()
+        .expect("channels")
+    {
+        assert_eq!(
+            ch["budget"],
+            serde_json::json!({ "Absolute": 1e30 }),
+            "{ch}"
         );
+    }
+    for (err, used, _) in recorded(&arch) {
         assert!(err <= budget, "error {err} over budget {budget}");
+        assert!(used <= 1.0 + 2f32.powi(-15), "error/budget {used}");
     }
 }

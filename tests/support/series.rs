@@ -7,7 +7,9 @@ use std::path::Path;
 use arrow::array::AsArray;
 use arrow::datatypes::DataType;
 
-use super::archive::{archive_rows, ArchiveRow};
+use super::archive::{
+    archive_meta, archive_rows, archive_segments, rule_budget, ArchiveRow, SegmentEntry,
+};
 use super::cli::{ps, Lab};
 use super::parquet_io::{cells_of, raw_times, read_table, Table, VType};
 use super::source::Columns;
@@ -155,8 +157,12 @@ pub fn finite_rms(x: &[f64]) -> f64 {
 /// One segment's numbers, recomputed from the files.
 #[derive(Debug, Clone)]
 pub struct SegCheck {
-    /// Archive row.
+    /// The segment, as the archive lists it.
+    pub seg: SegmentEntry,
+    /// Its archive row.
     pub row: ArchiveRow,
+    /// Its budget: the channel's rule in the metadata on `source_rms`, rounded down to f32.
+    pub budget: f64,
     /// RMS of (decoded − source) over the segment's finite source values.
     pub error_rms: f64,
     /// RMS of the segment's finite source values.
@@ -164,26 +170,37 @@ pub struct SegCheck {
 }
 
 /// Split a channel's source and decoded samples (both in time order) by the archive's
-/// `samples` column and recompute each segment's RMS error and RMS.
+/// segments and recompute each segment's RMS error, RMS and budget.
 pub fn segment_checks(
     name: &str,
     src: &Series,
     dec: &Series,
     rows: &[ArchiveRow],
+    segs: &[SegmentEntry],
+    meta: &serde_json::Value,
 ) -> Vec<SegCheck> {
-    let rows: Vec<&ArchiveRow> = rows.iter().filter(|r| r.channel == name).collect();
-    let total: usize = rows.iter().map(|r| r.samples).sum();
+    let segs: Vec<&SegmentEntry> = segs.iter().filter(|g| g.channel == name).collect();
+    let total: usize = segs.iter().map(|g| g.samples).sum();
     assert_eq!(
         total,
         src.len(),
-        "{name}: the archive's `samples` add up to {total}, the source has {} rows",
+        "{name}: the archive's segments add up to {total} samples, the source has {} rows",
         src.len()
+    );
+    let row_total: usize = rows
+        .iter()
+        .filter(|r| r.channel == name)
+        .map(|r| r.samples)
+        .sum();
+    assert_eq!(
+        row_total, total,
+        "{name}: the rows' `samples` add up to the segments'"
     );
     let mut out = Vec::new();
     let mut at = 0;
-    for r in rows {
-        let range = at..at + r.samples;
-        at += r.samples;
+    for g in segs {
+        let range = at..at + g.samples;
+        at += g.samples;
         let x: Vec<f64> = range
             .clone()
             .map(|i| src.value(i).unwrap_or(f64::NAN))
@@ -198,10 +215,13 @@ pub fn segment_checks(
             sum += (yv - xv) * (yv - xv);
             n += 1;
         }
+        let source_rms = finite_rms(&x);
         out.push(SegCheck {
-            row: r.clone(),
+            seg: g.clone(),
+            row: rows[g.row].clone(),
+            budget: rule_budget(meta, name, source_rms),
             error_rms: if n > 0 { (sum / n as f64).sqrt() } else { 0.0 },
-            source_rms: finite_rms(&x),
+            source_rms,
         });
     }
     out
@@ -256,7 +276,8 @@ pub struct RoundTrip {
 /// the same column names and types; rows sorted by (channel, time) (long) or time (wide);
 /// every channel's timestamps identical to the source's (sorted by time); null, NaN and ±Inf
 /// cells with identical bits at the same places; `lossless`: every cell bit-identical;
-/// every segment's recomputed RMS error within its `budget_rms` (the contract of the README).
+/// every segment's recomputed RMS error within its budget (the channel's rule in the metadata
+/// on the segment's source RMS: the contract of the README), and not above what its row records.
 /// `keep` limits the comparison to some channels (others must be absent from the decoded file).
 pub fn compare_decoded(
     source: &Path,
@@ -309,6 +330,8 @@ pub fn compare_decoded(
         "decoded channels"
     );
     let rows = archive_rows(archive);
+    let seg_list = archive_segments(archive);
+    let meta = archive_meta(archive);
     let mut segments = Vec::new();
     for (name, s) in &src {
         let d = &dec[name];
@@ -340,16 +363,36 @@ pub fn compare_decoded(
                 );
             }
         }
-        let segs = segment_checks(name, s, d, &rows);
+        let segs = segment_checks(name, s, d, &rows, &seg_list, &meta);
         for c in &segs {
+            // The budget is recomputed here from the rule; summation order may move the RMS
+            // by a few ulps, which can flip its f32 rounding by one step.
+            let budget = (c.budget as f32).next_up() as f64;
             assert!(
-                c.error_rms <= c.row.budget_rms as f64,
+                c.error_rms <= budget,
                 "{name}: segment at {} ({} samples): RMS error {:e} > budget {:e}",
-                c.row.start,
-                c.row.samples,
+                c.seg.start,
+                c.seg.samples,
                 c.error_rms,
-                c.row.budget_rms
+                c.budget
             );
+            // What the segment's row records is not less than what the segment shows.
+            assert!(
+                c.error_rms <= c.row.error_rms as f64 * (1.0 + 1e-6),
+                "{name}: segment at {}: error {:e} above its row's {:e}",
+                c.seg.start,
+                c.error_rms,
+                c.row.error_rms
+            );
+            if c.budget > 0.0 {
+                assert!(
+                    c.error_rms / budget <= c.row.budget_use as f64 * (1.0 + 1e-5),
+                    "{name}: segment at {}: error/budget {:e} above its row's {:e}",
+                    c.seg.start,
+                    c.error_rms / c.budget,
+                    c.row.budget_use
+                );
+            }
         }
         segments.extend(segs);
     }
