@@ -31,9 +31,6 @@ const WRITE_BATCH_ROWS: usize = 65_536;
 pub struct ArchiveWriter {
     out: PathBuf,
     tmp: PathBuf,
-    /// The temporary file, until the first rows are written.
-    file: Option<File>,
-    /// The Parquet writer, from the first rows on.
     writer: Option<ArrowWriter<File>>,
     schema: Arc<Schema>,
     pending: Vec<SliceRow>,
@@ -54,11 +51,29 @@ impl ArchiveWriter {
             source: e,
         })?;
         let schema = Arc::new(archive_schema());
+        // No embedded Arrow schema: the Parquet logical types already say everything a reader
+        // needs (UTC nanosecond times), and it cost 1.6 kB.
+        let writer = ArrowWriter::try_new_with_options(
+            file,
+            schema.clone(),
+            ArrowWriterOptions::new()
+                .with_properties(writer_properties())
+                .with_skip_arrow_metadata(true),
+        );
+        let writer = match writer {
+            Ok(w) => w,
+            Err(e) => {
+                let _ = std::fs::remove_file(&tmp);
+                return Err(Error::WriteParquet {
+                    file: out.to_path_buf(),
+                    reason: e.to_string(),
+                });
+            }
+        };
         Ok(ArchiveWriter {
             out: out.to_path_buf(),
             tmp,
-            file: Some(file),
-            writer: None,
+            writer: Some(writer),
             schema,
             pending: Vec::new(),
             next_block: 0,
@@ -96,23 +111,6 @@ impl ArchiveWriter {
     }
 
     fn write_pending(&mut self) -> Result<()> {
-        if self.writer.is_none() {
-            let file = self
-                .file
-                .take()
-                .ok_or_else(|| self.perr("writer already closed"))?;
-            // No embedded Arrow schema: the Parquet logical types already say everything a
-            // reader needs (UTC nanosecond times), and it cost 1.6 kB.
-            let w = ArrowWriter::try_new_with_options(
-                file,
-                self.schema.clone(),
-                ArrowWriterOptions::new()
-                    .with_properties(writer_properties())
-                    .with_skip_arrow_metadata(true),
-            )
-            .map_err(|e| self.perr(e))?;
-            self.writer = Some(w);
-        }
         if self.pending.is_empty() {
             return Ok(());
         }
@@ -195,10 +193,9 @@ impl ArchiveWriter {
 
 impl Drop for ArchiveWriter {
     fn drop(&mut self) {
-        if self.writer.is_some() || self.file.is_some() {
+        if self.writer.is_some() {
             // Not finished: publish nothing.
             self.writer = None;
-            self.file = None;
             let _ = std::fs::remove_file(&self.tmp);
         }
     }

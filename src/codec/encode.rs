@@ -81,8 +81,6 @@ pub struct SegmentSummary {
     pub budget_rms: f32,
     /// Recorded error (f32, rounded up).
     pub error_rms: f32,
-    /// Sample rate.
-    pub sample_rate_hz: f32,
     /// Fundamental.
     pub fundamental_hz: Option<f32>,
     /// Source RMS.
@@ -330,7 +328,6 @@ pub(crate) fn encode_block_of(
             cycles: (k > 0).then_some(s.cycles),
             budget_rms: budget as f32,
             error_rms: error_to_f32(fitted.plan.error_rms),
-            sample_rate_hz: fs as f32,
             fundamental_hz: s.fundamental_hz(fs).map(|f| f as f32),
             rms: compact(rms),
             harmonics: (1..=DERIVED_HARMONICS).map(harmonic).collect(),

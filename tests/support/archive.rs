@@ -163,8 +163,7 @@ pub fn rule_budget(meta: &serde_json::Value, channel: &str, rms: f64) -> f64 {
         let r = &rule["Relative"];
         (r["fraction"].as_f64().expect("fraction") * rms).max(r["floor"].as_f64().expect("floor"))
     };
-    let f = b as f32;
-    (if f as f64 > b { f.next_down() } else { f }) as f64
+    super::series::f32_down(b) as f64
 }
 
 /// The file's bytes before the Parquet footer (data pages), from the footer length stored in
