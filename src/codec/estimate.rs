@@ -82,8 +82,9 @@ const FLOOR_BLOCK: usize = 64;
 /// The power spectrum of a stretch: mean removed, Hann window, zero-padded.
 struct Spectrum {
     power: Vec<f64>,
-    /// Per bin: ln(power / local floor) for line bins, else 0 (see [`Spectrum::score`]).
-    line: Vec<f64>,
+    /// Running sums of the line measure: `line_sum[k]` = Σ_{j<k} ln(power_j / local floor)
+    /// over line bins (others count 0; see [`Spectrum::score`]).
+    line_sum: Vec<f64>,
     /// Hz per padded bin.
     bin_hz: f64,
     /// Padded length over the stretch's length (≥ 2).
@@ -111,18 +112,27 @@ impl Spectrum {
         let total: f64 = power.iter().sum();
         // The local floor: the median power of each block of FLOOR_BLOCK bins.
         let mut line = vec![0.0; power.len()];
+        let mut sorted = Vec::with_capacity(FLOOR_BLOCK);
         for (lb, pb) in line.chunks_mut(FLOOR_BLOCK).zip(power.chunks(FLOOR_BLOCK)) {
-            let mut sorted = pb.to_vec();
-            sorted.sort_by(f64::total_cmp);
-            let floor = sorted[sorted.len() / 2];
+            sorted.clear();
+            sorted.extend_from_slice(pb);
+            let mid = sorted.len() / 2;
+            let floor = *sorted.select_nth_unstable_by(mid, f64::total_cmp).1;
             for (l, &p) in lb.iter_mut().zip(pb) {
                 if p > LINE_OVER_FLOOR * floor {
                     *l = (p / floor).ln();
                 }
             }
         }
+        let mut line_sum = Vec::with_capacity(line.len() + 1);
+        let mut acc = 0.0;
+        line_sum.push(acc);
+        for l in line {
+            acc += l;
+            line_sum.push(acc);
+        }
         (total > 0.0 && total.is_finite()).then_some(Spectrum {
-            line,
+            line_sum,
             power,
             bin_hz: fs / m as f64,
             pad: m as f64 / n as f64,
@@ -170,8 +180,9 @@ impl Spectrum {
         if lo >= hi {
             return 0.0;
         }
-        let line = |k: usize| self.line[k];
-        let lines: f64 = (lo..=hi).map(line).sum();
+        // Σ of the line measure over bins a ..= b.
+        let lines_in = |a: usize, b: usize| self.line_sum[b + 1] - self.line_sum[a];
+        let lines = lines_in(lo, hi);
         if !(lines > 0.0) {
             return 0.0;
         }
@@ -185,7 +196,7 @@ impl Spectrum {
             let a = c.saturating_sub(half).max(next);
             let b = (c + half).min(hi);
             if a <= b {
-                caught += (a..=b).map(line).sum::<f64>();
+                caught += lines_in(a, b);
                 covered += b + 1 - a;
                 next = b + 1;
             }
@@ -201,8 +212,12 @@ impl Spectrum {
         let mut peaks: Vec<usize> = (k_lo..=k_hi)
             .filter(|&k| self.power[k] >= self.power[k - 1] && self.power[k] > self.power[k + 1])
             .collect();
-        peaks.sort_by(|&a, &b| self.power[b].total_cmp(&self.power[a]).then(a.cmp(&b)));
+        let order = |a: &usize, b: &usize| self.power[*b].total_cmp(&self.power[*a]).then(a.cmp(b));
+        if peaks.len() > count && count > 0 {
+            peaks.select_nth_unstable_by(count - 1, order);
+        }
         peaks.truncate(count);
+        peaks.sort_by(order);
         peaks
             .into_iter()
             .map(|k| refine_peak(&self.power, k) * self.bin_hz)

@@ -19,7 +19,7 @@
 use serde::Serialize;
 
 use crate::codec::decode::{synthesize, synthesize_trend, trend_basis, Prev};
-use crate::codec::quant::{cost_bits, delta_codes, dequantize_bin, quantize_bin};
+use crate::codec::quant::{cost_bits, delta_codes, dequantize_bin, quantize_bin, CostCounter};
 use crate::codec::warp::{estimate_warp, synthesize_warped, to_angle};
 use crate::model::{Basis, Trend, ValueType};
 use crate::signal::{
@@ -165,7 +165,7 @@ pub fn error_by_order(c: &[C64], pred: Option<&[C64]>, step: f64, n: usize) -> V
         let p = pred.map_or(C64::new(0.0, 0.0), |p| {
             p.get(k).copied().unwrap_or_default()
         });
-        head += quantize_bin(c[k], p, step, k, n).2;
+        head += quantize_bin(c[k], p, step, 1.0 / step, k, n).2;
         out.push(head + tail[k + 1]);
     }
     out
@@ -182,33 +182,6 @@ fn tail_energies(c: &[C64], n: usize) -> Vec<f64> {
     tail
 }
 
-/// The least order L whose error energy `E(L)` (exactly as [`error_by_order`] computes it,
-/// from the same sums in the same order) is at most `target`; bins beyond that L are not
-/// quantized. `tail` is [`tail_energies`] of `c`.
-fn least_order(
-    c: &[C64],
-    pred: Option<&[C64]>,
-    step: f64,
-    n: usize,
-    tail: &[f64],
-    target: f64,
-) -> Option<usize> {
-    if tail[0] <= target {
-        return Some(0);
-    }
-    let mut head = 0.0;
-    for (k, &ck) in c.iter().enumerate() {
-        let p = pred.map_or(C64::new(0.0, 0.0), |p| {
-            p.get(k).copied().unwrap_or_default()
-        });
-        head += quantize_bin(ck, p, step, k, n).2;
-        if head + tail[k + 1] <= target {
-            return Some(k + 1);
-        }
-    }
-    None
-}
-
 /// The codes of order `l`, step Δ, optional prediction; and the reconstructed coefficients.
 pub fn quantize(
     c: &[C64],
@@ -219,11 +192,12 @@ pub fn quantize(
 ) -> (Vec<i64>, Vec<C64>) {
     let mut codes = Vec::with_capacity(2 * l);
     let mut rec = Vec::with_capacity(l);
+    let inv = 1.0 / step;
     for (k, &ck) in c.iter().enumerate().take(l) {
         let p = pred.map_or(C64::new(0.0, 0.0), |p| {
             p.get(k).copied().unwrap_or_default()
         });
-        let (qr, qi, _) = quantize_bin(ck, p, step, k, n);
+        let (qr, qi, _) = quantize_bin(ck, p, step, inv, k, n);
         codes.push(qr);
         if !is_real_bin(k, n) {
             codes.push(qi);
@@ -338,24 +312,30 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
         prev,
         fft,
         Synthesis::Plain,
+        f64::INFINITY,
     );
     let fourier_order = fourier
         .as_ref()
         .and_then(|f| f.plan.order)
         .map(|o| o as usize);
-    if let Some(order) = fourier_order {
-        if let Some(f) = fit_warped(
-            values, &filled, &spectrum, n_finite, value_type, budget_rms, round_mse, prev, order,
-            fft,
-        ) {
-            if f.plan.cost_bits < best.plan.cost_bits {
-                best = f;
-            }
-        }
-    }
     if let Some(f) = fourier {
         if f.plan.cost_bits < best.plan.cost_bits {
             best = f;
+        }
+    }
+    if let Some(order) = fourier_order {
+        let warp = WarpInput {
+            filled: &filled,
+            spectrum: &spectrum,
+            n_finite,
+            round_mse,
+            order,
+            beat: best.plan.cost_bits,
+        };
+        if let Some(f) = fit_warped(values, value_type, budget_rms, &warp, prev, fft) {
+            if f.plan.cost_bits < best.plan.cost_bits {
+                best = f;
+            }
         }
     }
     if jumps(&filled, budget_rms) {
@@ -364,6 +344,7 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
             n_finite,
             round_mse,
             fourier_order,
+            beat: best.plan.cost_bits,
         };
         if let Some(f) = fit_trend(values, value_type, budget_rms, &trend, prev, fft) {
             if f.plan.cost_bits < best.plan.cost_bits {
@@ -374,45 +355,68 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
     best
 }
 
+/// What the warped fit shares with the plain fits of the same segment.
+struct WarpInput<'a> {
+    filled: &'a [f64],
+    spectrum: &'a [C64],
+    n_finite: usize,
+    round_mse: f64,
+    /// The plain Fourier fit's order.
+    order: usize,
+    /// The cost of the best fit so far: a warped fit that cannot beat it is not synthesized.
+    beat: f64,
+}
+
+/// Bits a warped segment carries besides its coefficients (the warp, as f32).
+const WARP_BITS: f64 = 32.0;
+
 /// The warped fit ([`crate::codec::warp`]): the warp estimated from the strongest bin's phase
 /// over the segment's thirds, tried when it would move the highest kept bin by more than
 /// [`WARP_MIN_DRIFT`] of a cycle across the segment; the segment resampled in angle and coded
-/// as [`fit_fourier`] codes a segment, with the decoder's warped synthesis.
-#[allow(clippy::too_many_arguments)]
+/// as [`fit_fourier`] codes a segment, with the decoder's warped synthesis. The synthesis
+/// (N·L terms) only runs when the step and order search on the warped spectrum says the fit
+/// can beat `w.beat`.
 fn fit_warped(
     values: &[f64],
-    filled: &[f64],
-    spectrum: &[C64],
-    n_finite: usize,
     value_type: ValueType,
     budget_rms: f64,
-    round_mse: f64,
+    w: &WarpInput<'_>,
     prev: Option<&Prev>,
-    order: usize,
     fft: &dyn Transform,
 ) -> Option<Fitted> {
+    let spectrum = w.spectrum;
     let bin = (1..spectrum.len())
         .max_by(|&a, &b| spectrum[a].norm_sqr().total_cmp(&spectrum[b].norm_sqr()))?;
-    let a = estimate_warp(filled, bin)? as f32;
-    if !((a as f64).abs() * order as f64 / 4.0 > WARP_MIN_DRIFT) {
+    if w.order * WARP_MAX_ORDER_FRACTION > w.filled.len() {
         return None;
     }
-    let spec = fft.forward(&to_angle(filled, a as f64));
+    let a = estimate_warp(w.filled, bin)? as f32;
+    if !((a as f64).abs() * w.order as f64 / 4.0 > WARP_MIN_DRIFT) {
+        return None;
+    }
+    let spec = fft.forward(&to_angle(w.filled, a as f64));
     let mut f = fit_fourier(
         values,
         &spec,
-        n_finite,
+        w.n_finite,
         value_type,
         budget_rms,
-        round_mse,
+        w.round_mse,
         prev,
         fft,
         Synthesis::Warp(a as f64),
+        w.beat - WARP_BITS,
     )?;
     f.plan.warp = Some(a);
-    f.plan.cost_bits += 32.0;
+    f.plan.cost_bits += WARP_BITS;
     Some(f)
 }
+
+/// A warp is tried only on segments whose plain order is at most 1/this of their samples:
+/// the cubic resampling is accurate well below the Nyquist frequency only, and near it its
+/// loss (which the warped spectrum does not show) makes a broadband segment look cheaper in
+/// angle than it is, to be found out only by the N·L synthesis.
+pub const WARP_MAX_ORDER_FRACTION: usize = 8;
 
 /// A warp is tried when it moves the highest kept bin by more than this many cycles.
 pub const WARP_MIN_DRIFT: f64 = 0.05;
@@ -450,7 +454,12 @@ struct TrendInput<'a> {
     round_mse: f64,
     /// The plain Fourier fit's order, where the polynomial is first fitted.
     fourier_order: Option<usize>,
+    /// The cost of the best fit so far: a trend fit that cannot beat it is not synthesized.
+    beat: f64,
 }
+
+/// Bits a trend segment carries besides its codes (degree and step).
+const TREND_BITS: f64 = 40.0;
 
 /// Coefficients β of the polynomial columns `u` (spectra `us`) that minimize the energy
 /// left outside bins 0 … l−1: the least squares of the columns projected on the dropped
@@ -527,6 +536,10 @@ fn fit_trend(
                     *s += b * v;
                 }
             }
+            let extra = cost_bits(&q) + TREND_BITS;
+            let beat = best
+                .as_ref()
+                .map_or(t.beat, |b| b.plan.cost_bits.min(t.beat));
             let Some(mut f) = fit_fourier(
                 values,
                 &rest,
@@ -537,6 +550,7 @@ fn fit_trend(
                 prev,
                 fft,
                 Synthesis::Trend(&shape),
+                beat - extra,
             ) else {
                 break;
             };
@@ -548,7 +562,7 @@ fn fit_trend(
                 degree: degree as u8,
                 step,
             });
-            f.plan.cost_bits += cost_bits(&q) + 40.0;
+            f.plan.cost_bits += extra;
             let order = f.plan.order.unwrap_or(0) as usize;
             if best
                 .as_ref()
@@ -679,6 +693,15 @@ pub fn fit_samples(
 
 /// The cheapest (step, order) on the step grid for a target energy, with or without
 /// prediction: returns (step, order, cost bits).
+///
+/// The grid runs from √(12·E) (one code's rounding spends the whole target) down by
+/// [`STEPS_PER_OCTAVE`] per octave to where every kept code's rounding is far below it. The
+/// cost along it falls while coarser steps still force a high order, then rises as finer steps
+/// buy nothing but longer codes; the search samples every other grid step from the coarse end,
+/// stops [`SEARCH_PATIENCE`] samples past the cheapest, and then tries that one's two grid
+/// neighbours. Each trial quantizes the bins once, stopping at its least order: the least L
+/// whose error energy `E(L)` (exactly as [`error_by_order`] computes it, from the same sums in
+/// the same order) is at most the target; it costs the codes with a reused histogram.
 pub fn choose_step_order(
     c: &[C64],
     pred: Option<&[C64]>,
@@ -692,26 +715,84 @@ pub fn choose_step_order(
     let hi = (12.0 * target_energy).sqrt();
     let lo = (12.0 * target_energy / (2.0 * m as f64)).sqrt() / 2.0;
     let ratio = 2f64.powf(-1.0 / STEPS_PER_OCTAVE);
-    let mut best: Option<(f32, usize, f64)> = None;
-    // The dropped bins' energy is the same at every step: summed once.
-    let tail = tail_energies(c, n);
+    let mut grid = Vec::new();
     let mut s = hi;
     while s >= lo {
-        let step = s as f32;
-        let sd = step as f64;
-        if sd > 0.0 {
-            if let Some(l) = least_order(c, pred, sd, n, &tail, target_energy) {
-                let (codes, _) = quantize(c, pred, sd, n, l);
-                let bits = cost_bits(&codes) + HEADER_BITS;
-                if best.is_none_or(|b| bits < b.2) {
-                    best = Some((step, l, bits));
-                }
-            }
-        }
+        grid.push(s as f32);
         s *= ratio;
     }
-    best
+    // The dropped bins' energy is the same at every step: summed once; so are the residuals.
+    let tail = tail_energies(c, n);
+    let resid: Vec<C64> = match pred {
+        Some(p) => c
+            .iter()
+            .enumerate()
+            .map(|(k, &ck)| ck - p.get(k).copied().unwrap_or_default())
+            .collect(),
+        None => c.to_vec(),
+    };
+    let zero = C64::new(0.0, 0.0);
+    let mut codes: Vec<i64> = Vec::with_capacity(2 * m);
+    let mut counter = CostCounter::new();
+    let mut trial = |step: f32| -> Option<(usize, f64)> {
+        let sd = step as f64;
+        if !(sd > 0.0) {
+            return None;
+        }
+        codes.clear();
+        let l = if tail[0] <= target_energy {
+            0
+        } else {
+            let (inv, mut head, mut found) = (1.0 / sd, 0.0, None);
+            for (k, &r) in resid.iter().enumerate() {
+                let (qr, qi, e) = quantize_bin(r, zero, sd, inv, k, n);
+                codes.push(qr);
+                if !is_real_bin(k, n) {
+                    codes.push(qi);
+                }
+                head += e;
+                if head + tail[k + 1] <= target_energy {
+                    found = Some(k + 1);
+                    break;
+                }
+            }
+            found?
+        };
+        Some((l, counter.bits(&codes) + HEADER_BITS))
+    };
+    // (bits, grid index, order) of the cheapest trial; ties go to the coarser step.
+    let mut best: Option<(f64, usize, usize)> = None;
+    let mut consider = |i: usize, best: &mut Option<(f64, usize, usize)>| -> Option<bool> {
+        let (l, bits) = trial(grid[i])?;
+        let better = best.is_none_or(|b| bits < b.0 || (bits == b.0 && i < b.1));
+        if better {
+            *best = Some((bits, i, l));
+        }
+        Some(better)
+    };
+    let mut worse = 0;
+    for i in (0..grid.len()).step_by(2) {
+        match consider(i, &mut best) {
+            Some(true) => worse = 0,
+            Some(false) => worse += 1,
+            None => {}
+        }
+        if worse >= SEARCH_PATIENCE {
+            break;
+        }
+    }
+    // The coarse pass tried even indices only: the cheapest one's neighbours are new.
+    let (_, at, _) = best?;
+    for i in [at.wrapping_sub(1), at + 1] {
+        if i < grid.len() {
+            consider(i, &mut best);
+        }
+    }
+    best.map(|(bits, i, l)| (grid[i], l, bits))
 }
+
+/// Samples past the cheapest after which the step search stops.
+pub const SEARCH_PATIENCE: usize = 3;
 
 /// The Fourier fit of `spectrum`, synthesized as `synthesis` says.
 #[allow(clippy::too_many_arguments)]
@@ -725,6 +806,7 @@ fn fit_fourier(
     prev: Option<&Prev>,
     fft: &dyn Transform,
     synthesis: Synthesis<'_>,
+    beat: f64,
 ) -> Option<Fitted> {
     let n = values.len();
     let m = spectrum.len();
@@ -745,6 +827,11 @@ fn fit_fourier(
             (None, Some(b)) => (true, b),
             (None, None) => return None,
         };
+        // Tightening only adds bits: a fit whose estimate cannot beat `beat` is not
+        // synthesized.
+        if !(bits < beat) {
+            return None;
+        }
         let p = if use_pred { pred.as_deref() } else { None };
         let (codes, coeffs) = quantize(spectrum, p, step as f64, n, l);
         let (y, output) = match synthesis {
