@@ -375,6 +375,65 @@ pub(crate) enum PassOutcome {
 
 /// One pass over the source into `out`, streaming or gathering every channel to sort it
 /// first.
+/// Feed each channel its samples of this batch. Channels are independent: their assembly,
+/// planning and tracking run on up to one OS thread per pool thread, in contiguous groups of
+/// channels, beside the pool that fits earlier batches (a pool task would queue behind that
+/// fitting and leave the reader waiting). Results come back in channel order, so the blocks
+/// join the batch in channel order and the first failure in channel order is the one
+/// reported.
+fn push_channels(
+    channels: &mut [ChannelEncoder],
+    arrived: Vec<Vec<ChannelSamples>>,
+    settings: &Settings,
+) -> Vec<std::result::Result<Vec<BlockJob>, StreamError>> {
+    let push = |ci: usize, ch: &mut ChannelEncoder, samples: Vec<ChannelSamples>| {
+        let mut out = Vec::new();
+        for s in samples {
+            ch.push(ci, s, settings, &mut out)?;
+        }
+        Ok(out)
+    };
+    let busy = arrived.iter().filter(|a| !a.is_empty()).count();
+    let workers = rayon::current_num_threads().min(busy);
+    let n = arrived.len().min(channels.len());
+    if workers <= 1 {
+        return channels
+            .iter_mut()
+            .zip(arrived)
+            .enumerate()
+            .map(|(ci, (ch, samples))| push(ci, ch, samples))
+            .collect();
+    }
+    let per = n.div_ceil(workers);
+    let mut arrived = arrived;
+    arrived.truncate(n);
+    let mut groups: Vec<Vec<Vec<ChannelSamples>>> = Vec::new();
+    while !arrived.is_empty() {
+        let rest = arrived.split_off(per.min(arrived.len()));
+        groups.push(std::mem::replace(&mut arrived, rest));
+    }
+    std::thread::scope(|scope| {
+        let handles: Vec<_> = channels[..n]
+            .chunks_mut(per)
+            .zip(groups)
+            .enumerate()
+            .map(|(g, (chs, group))| {
+                scope.spawn(move || {
+                    chs.iter_mut()
+                        .zip(group)
+                        .enumerate()
+                        .map(|(i, (ch, samples))| push(g * per + i, ch, samples))
+                        .collect::<Vec<_>>()
+                })
+            })
+            .collect();
+        handles
+            .into_iter()
+            .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+            .collect()
+    })
+}
+
 pub(crate) fn encode_pass(
     source: &Path,
     out: &Path,
@@ -404,6 +463,8 @@ pub(crate) fn encode_pass(
     );
     while let Some(chunks) = src.next_chunks() {
         crate::stop::check()?;
+        // This batch's samples per channel, in arrival order.
+        let mut arrived: Vec<Vec<ChannelSamples>> = Vec::new();
         for c in chunks? {
             bar.inc(c.samples.len() as u64);
             while channels.len() <= c.channel {
@@ -419,13 +480,21 @@ pub(crate) fn encode_pass(
                 continue;
             }
             // A channel whose first rows come before blocks already written: not time-ordered.
-            if channels[ci].last_time.is_none()
-                && last_written.is_some_and(|w| s.times.first().is_some_and(|&t| t < w))
-            {
+            let fresh = channels[ci].last_time.is_none()
+                && arrived
+                    .get(ci)
+                    .is_none_or(|a| a.iter().all(|s| s.times.is_empty()));
+            if fresh && last_written.is_some_and(|w| s.times.first().is_some_and(|&t| t < w)) {
                 return Ok(PassOutcome::NeedsSort);
             }
-            match channels[ci].push(ci, s, settings, &mut jobs) {
-                Ok(()) => {}
+            if arrived.len() <= ci {
+                arrived.resize_with(ci + 1, Vec::new);
+            }
+            arrived[ci].push(s);
+        }
+        for r in push_channels(&mut channels, arrived, settings) {
+            match r {
+                Ok(mut js) => jobs.append(&mut js),
                 Err(StreamError::NeedsSort) => return Ok(PassOutcome::NeedsSort),
                 Err(StreamError::Fatal(e)) => return Err(e),
             }
