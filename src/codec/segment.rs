@@ -16,6 +16,7 @@
 //!
 //! Does not: transform segments (that is `fit`).
 
+use rayon::prelude::*;
 use serde::Serialize;
 
 use crate::codec::estimate::{candidates, refine, track, Candidate, MIN_ESTIMATE_SAMPLES};
@@ -151,7 +152,7 @@ struct Choice {
 
 /// Prices a trial cut for the planner: the coded bytes of `x` cut into `segments` (whole
 /// segments tiling a prefix of `x`, all values finite), or `None` if it cannot be coded.
-pub trait Arbiter {
+pub trait Arbiter: Sync {
     /// Coded bytes of the trial.
     fn trial_bytes(&self, x: &[f64], segments: &[PlannedSegment]) -> Option<usize>;
 }
@@ -590,8 +591,10 @@ impl Planner {
             let bytes = arbiter.trial_bytes(&trial[..covered], &segs)?;
             Some(bytes as f64 / covered as f64)
         };
+        // The trials are independent: priced on the pool (the run's start, before any block
+        // is fitted), collected in candidate order.
         let mut priced: Vec<(Estimate, f64)> = cands
-            .iter()
+            .par_iter()
             .filter_map(|c| {
                 let hz = refine(trial, fs, c.hz, 0.01).unwrap_or(c.hz);
                 let e = Estimate {
@@ -617,8 +620,13 @@ impl Planner {
         if let Some((best, b)) = priced.first_mut() {
             if !given_k {
                 let base = natural(best.hz);
-                for m in [2.0, 4.0, 16.0, 64.0] {
-                    if let Some(p) = price(FundamentalSetting::Hz(best.hz), m * base) {
+                let hz = best.hz;
+                let longer: Vec<Option<f64>> = [2.0, 4.0, 16.0, 64.0]
+                    .par_iter()
+                    .map(|&m| price(FundamentalSetting::Hz(hz), m * base))
+                    .collect();
+                for (m, p) in [2.0, 4.0, 16.0, 64.0].into_iter().zip(longer) {
+                    if let Some(p) = p {
                         if p < *b {
                             (*b, seconds) = (p, m * base);
                         }
@@ -632,8 +640,10 @@ impl Planner {
             _ => [1.0, 4.0, 16.0, 64.0].iter().map(|m| m * fixed).collect(),
         };
         let (none, none_s) = block_seconds
+            .par_iter()
+            .filter_map(|&d| price(FundamentalSetting::None, d).map(|b| (b, d)))
+            .collect::<Vec<_>>()
             .into_iter()
-            .filter_map(|d| price(FundamentalSetting::None, d).map(|b| (b, d)))
             .min_by(|a, b| a.0.total_cmp(&b.0))
             .unwrap_or((f64::INFINITY, fixed));
         // A harmonic of the best-scored candidate that codes smaller cuts the same segments
