@@ -101,9 +101,11 @@ impl Spectrum {
         let mean = x.iter().sum::<f64>() / n as f64;
         let m = (2 * n).next_power_of_two();
         let mut buf = vec![0.0; m];
-        for (i, v) in x.iter().enumerate() {
-            buf[i] = (v - mean) * hann(i, n);
-        }
+        with_hann(n, |w| {
+            for ((b, v), w) in buf.iter_mut().zip(x).zip(w) {
+                *b = (v - mean) * w;
+            }
+        });
         let power: Vec<f64> = RealFft::shared()
             .forward(&buf)
             .iter()
@@ -433,6 +435,21 @@ fn interpolate(a: &[f64], at: f64) -> f64 {
 fn hann(i: usize, n: usize) -> f64 {
     let t = std::f64::consts::PI * (i as f64 + 0.5) / n as f64;
     t.sin().powi(2)
+}
+
+/// Run `f` on the [`hann`] window of length `n`, kept per thread for the last length asked
+/// (tracking windows of a run share their length), so its values are computed once.
+fn with_hann<R>(n: usize, f: impl FnOnce(&[f64]) -> R) -> R {
+    thread_local! {
+        static WINDOW: std::cell::RefCell<Vec<f64>> = const { std::cell::RefCell::new(Vec::new()) };
+    }
+    WINDOW.with(|w| {
+        let mut w = w.borrow_mut();
+        if w.len() != n {
+            *w = (0..n).map(|i| hann(i, n)).collect();
+        }
+        f(&w)
+    })
 }
 
 /// Parabolic interpolation of the log power around bin k; returns the fractional bin.

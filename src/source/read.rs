@@ -8,7 +8,7 @@
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
 
-use arrow::array::{Array, ArrayRef, AsArray};
+use arrow::array::{Array, ArrayRef, AsArray, PrimitiveArray};
 use arrow::datatypes::{
     DataType, Float32Type, Float64Type, Int16Type, Int32Type, Int64Type, TimeUnit,
     TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
@@ -405,9 +405,15 @@ impl Source {
                     })?;
                 let names = names.as_string::<i32>();
                 let vt = self.long_vt;
-                let values = batch.column(self.value_idx[0].0).clone();
+                let column = batch.column(self.value_idx[0].0).clone();
+                let values = ValueColumn::of(&column, vt);
                 let mut chunks: Vec<ChannelChunk> = Vec::new();
-                let mut slot: HashMap<usize, usize> = HashMap::new();
+                // The names met in this batch, each with its chunk (None: not a wanted
+                // channel), and the last one met: rows of a long layout repeat a few names,
+                // so a short scan usually finds the name without hashing it.
+                let mut met: Vec<(&str, Option<usize>)> = Vec::new();
+                let mut met_at: HashMap<&str, usize> = HashMap::new();
+                let mut last = usize::MAX;
                 for (i, &t) in times.iter().enumerate() {
                     if names.is_null(i) {
                         return Err(Error::NullChannel {
@@ -417,32 +423,48 @@ impl Source {
                         });
                     }
                     let name = names.value(i);
-                    if let Some(w) = &self.wanted {
-                        if !w.iter().any(|c| c == name) {
-                            continue;
-                        }
-                    }
-                    let ch = match self.names.get(name) {
-                        Some(&c) => c,
-                        None => {
-                            let c = self.schema.channels.len();
-                            self.schema.channels.push(ChannelInfo {
-                                name: name.to_string(),
-                                value_type: vt,
+                    let at = if met.get(last).is_some_and(|m| m.0 == name) {
+                        last
+                    } else if let Some(j) = if met.len() <= SCAN_NAMES {
+                        met.iter().position(|m| m.0 == name)
+                    } else {
+                        met_at.get(name).copied()
+                    } {
+                        j
+                    } else {
+                        let wanted = self
+                            .wanted
+                            .as_ref()
+                            .is_none_or(|w| w.iter().any(|c| c == name));
+                        let s = wanted.then(|| {
+                            let ch = match self.names.get(name) {
+                                Some(&c) => c,
+                                None => {
+                                    let c = self.schema.channels.len();
+                                    self.schema.channels.push(ChannelInfo {
+                                        name: name.to_string(),
+                                        value_type: vt,
+                                    });
+                                    self.names.insert(name.to_string(), c);
+                                    c
+                                }
+                            };
+                            chunks.push(ChannelChunk {
+                                channel: ch,
+                                ..Default::default()
                             });
-                            self.names.insert(name.to_string(), c);
-                            c
-                        }
-                    };
-                    let s = *slot.entry(ch).or_insert_with(|| {
-                        chunks.push(ChannelChunk {
-                            channel: ch,
-                            ..Default::default()
+                            chunks.len() - 1
                         });
-                        chunks.len() - 1
-                    });
+                        met.push((name, s));
+                        met_at.insert(name, met.len() - 1);
+                        met.len() - 1
+                    };
+                    last = at;
+                    let Some(s) = met[at].1 else {
+                        continue;
+                    };
                     let chunk = &mut chunks[s];
-                    push_value(chunk, &values, i, vt);
+                    push_value(chunk, &values, i);
                     chunk.samples.times.push(t);
                     chunk.samples.rows.push(first_row + i as u64);
                 }
@@ -452,7 +474,8 @@ impl Source {
                 let mut chunks = Vec::with_capacity(self.value_idx.len());
                 for &(col, ch) in &self.value_idx {
                     let vt = self.schema.channels[ch].value_type;
-                    let values = batch.column(col).clone();
+                    let column = batch.column(col).clone();
+                    let values = ValueColumn::of(&column, vt);
                     let mut chunk = ChannelChunk {
                         channel: ch,
                         samples: ChannelSamples {
@@ -462,7 +485,7 @@ impl Source {
                         },
                     };
                     for i in 0..times.len() {
-                        push_value(&mut chunk, &values, i, vt);
+                        push_value(&mut chunk, &values, i);
                     }
                     chunks.push(chunk);
                 }
@@ -536,17 +559,48 @@ impl Source {
 }
 
 /// Append value i of `col` to the chunk, recording nulls and non-finite values.
-fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType) {
+/// Up to this many channel names in a batch are found by a scan, more by hashing.
+const SCAN_NAMES: usize = 16;
+
+/// A value column of a batch, its type looked up once per batch rather than once per row.
+enum ValueColumn<'a> {
+    F64(&'a PrimitiveArray<Float64Type>),
+    F32(&'a PrimitiveArray<Float32Type>),
+    I16(&'a PrimitiveArray<Int16Type>),
+    I32(&'a PrimitiveArray<Int32Type>),
+}
+
+impl<'a> ValueColumn<'a> {
+    fn of(col: &'a ArrayRef, vt: ValueType) -> Self {
+        match vt {
+            ValueType::F64 => ValueColumn::F64(col.as_primitive()),
+            ValueType::F32 => ValueColumn::F32(col.as_primitive()),
+            ValueType::I16 => ValueColumn::I16(col.as_primitive()),
+            ValueType::I32 => ValueColumn::I32(col.as_primitive()),
+        }
+    }
+
+    fn is_null(&self, i: usize) -> bool {
+        match self {
+            ValueColumn::F64(a) => a.is_null(i),
+            ValueColumn::F32(a) => a.is_null(i),
+            ValueColumn::I16(a) => a.is_null(i),
+            ValueColumn::I32(a) => a.is_null(i),
+        }
+    }
+}
+
+fn push_value(chunk: &mut ChannelChunk, col: &ValueColumn<'_>, i: usize) {
     let idx = chunk.samples.values.len();
     if col.is_null(i) {
         chunk.samples.values.push(f64::NAN);
         chunk.samples.specials.push((idx, SpecialKind::Null));
         return;
     }
-    let v = match vt {
-        ValueType::F64 => col.as_primitive::<Float64Type>().value(i),
-        ValueType::F32 => {
-            let f = col.as_primitive::<Float32Type>().value(i);
+    let v = match col {
+        ValueColumn::F64(a) => a.value(i),
+        ValueColumn::F32(a) => {
+            let f = a.value(i);
             if f.is_nan() {
                 chunk.samples.values.push(f64::NAN);
                 chunk
@@ -557,8 +611,8 @@ fn push_value(chunk: &mut ChannelChunk, col: &ArrayRef, i: usize, vt: ValueType)
             }
             f as f64
         }
-        ValueType::I16 => col.as_primitive::<Int16Type>().value(i) as f64,
-        ValueType::I32 => col.as_primitive::<Int32Type>().value(i) as f64,
+        ValueColumn::I16(a) => a.value(i) as f64,
+        ValueColumn::I32(a) => a.value(i) as f64,
     };
     if v.is_nan() {
         chunk.samples.values.push(f64::NAN);
