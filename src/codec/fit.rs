@@ -755,6 +755,11 @@ pub fn choose_step_order(
                     found = Some(k + 1);
                     break;
                 }
+                // The kept bins' error only grows with the order: no order meets the
+                // target once it alone exceeds it.
+                if head > target_energy {
+                    break;
+                }
             }
             found?
         };
