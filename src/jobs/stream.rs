@@ -20,7 +20,7 @@ use crate::jobs::control::{progress_bar, EncodeSummary, JobControl};
 use crate::model::{ChannelInfo, Run, ValueType};
 use crate::options::Settings;
 use crate::source::{
-    sort_channel, ChannelAssembler, ChannelSamples, RunEvent, Source, StreamError,
+    sort_channel, Batch, ChannelAssembler, ChannelSamples, Prefetch, RunEvent, Source, StreamError,
 };
 
 /// Samples of finished blocks fitted together in one parallel batch.
@@ -373,8 +373,6 @@ pub(crate) enum PassOutcome {
     NeedsSort,
 }
 
-/// One pass over the source into `out`, streaming or gathering every channel to sort it
-/// first.
 /// Feed each channel its samples of this batch. Channels are independent: their assembly,
 /// planning and tracking run on up to one OS thread per pool thread, in contiguous groups of
 /// channels, beside the pool that fits earlier batches (a pool task would queue behind that
@@ -434,6 +432,8 @@ fn push_channels(
     })
 }
 
+/// One pass over the source into `out`, streaming or gathering every channel to sort it
+/// first.
 pub(crate) fn encode_pass(
     source: &Path,
     out: &Path,
@@ -442,7 +442,12 @@ pub(crate) fn encode_pass(
     source_meta: &SourceMeta,
     reading: Reading,
 ) -> Result<PassOutcome> {
-    let mut src = Source::open(source, &settings.source)?;
+    let src = Source::open(source, &settings.source)?;
+    let total_rows = src.total_rows;
+    // The channels known from the schema (wide layout); a long layout's arrive with batches.
+    let mut infos: Vec<ChannelInfo> = src.schema.channels.clone();
+    // Reading runs one batch ahead on its own thread, beside planning and fitting.
+    let mut reader = Prefetch::start(src);
     let mut writer = ArchiveWriter::create(out)?;
     let mut channels: Vec<ChannelEncoder> = Vec::new();
     let mut gathered: Vec<ChannelSamples> = Vec::new();
@@ -454,21 +459,26 @@ pub(crate) fn encode_pass(
     let mut in_flight: Option<InFlight> = None;
     let bar = progress_bar(
         control,
-        src.total_rows,
+        total_rows,
         if reading == Reading::Sort {
             "sorting"
         } else {
             "encoding"
         },
     );
-    while let Some(chunks) = src.next_chunks() {
+    while let Some(Batch {
+        chunks,
+        new_channels,
+    }) = reader.next_batch()
+    {
         crate::stop::check()?;
+        infos.extend(new_channels);
         // This batch's samples per channel, in arrival order.
         let mut arrived: Vec<Vec<ChannelSamples>> = Vec::new();
         for c in chunks? {
             bar.inc(c.samples.len() as u64);
             while channels.len() <= c.channel {
-                let info = src.schema.channels[channels.len()].clone();
+                let info = infos[channels.len()].clone();
                 channels.push(ChannelEncoder::new(source, info, settings));
                 gathered.push(ChannelSamples::default());
             }
@@ -532,6 +542,7 @@ pub(crate) fn encode_pass(
             }
         }
     }
+    let src = reader.finish();
     if let Some(prev) = in_flight.take() {
         prev.finish(&mut ordered)?;
     }

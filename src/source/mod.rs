@@ -9,12 +9,14 @@ use serde::Serialize;
 use crate::model::Layout;
 
 pub mod assemble;
+pub mod prefetch;
 pub mod read;
 pub mod writeback;
 
 pub use assemble::{
     assemble, sort_channel, ChannelAssembler, ChannelSamples, RunEvent, StreamError,
 };
+pub use prefetch::{Batch, Prefetch};
 pub use read::{ChannelChunk, Source};
 pub use writeback::write_decoded;
 
