@@ -12,6 +12,7 @@ pub mod frame;
 pub mod params;
 pub mod parse;
 pub mod quant;
+pub mod search;
 pub mod segment;
 pub mod warp;
 
