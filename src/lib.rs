@@ -13,7 +13,8 @@
 //! options                    the one options type (flags and pipelines/*.toml), resolved once
 //! source        archive      Parquet sources in and decoded Parquet out | the archive file
 //! codec                      samples ↔ coded blocks: params, estimate, segment, fit, quant,
-//!                            frame, parse, encode, decode; never Parquet, paths or columns
+//!                            entropy, frame, parse, encode, decode; never Parquet, paths or
+//!                            columns
 //! signal        fsio         FFT and signal maths | durable files, digests, safe Parquet open
 //! model         error        the shared vocabulary | the error type and exit codes
 //! ```
@@ -72,7 +73,12 @@
 //! up, and measured at a power-of-two scale when their squares would leave f64's range, so
 //! a tiny error is never recorded as 0 ([`signal::rms_of`]).
 //!
-//! **Archive.** One Parquet file, one row per second of a block's segments (format 2); the
+//! **Coding.** A block's integer codes (quantized bins, trend coefficients, time-domain
+//! samples) form one range-coded stream with adaptive probabilities in contexts
+//! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block
+//! whose codes zstd alone packs smaller is written with varint codes instead (block layout 1).
+//!
+//! **Archive.** One Parquet file, one row per second of a block's segments (format 2.1); the
 //! schema, its columns and the version rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
 //! exactly, and NaN, ±Inf and null values exactly where they were.
 //!

@@ -15,10 +15,10 @@ use crate::model::{ChannelInfo, Layout, SourceSchema, ValueType};
 pub const FORMAT_MAJOR: u32 = 2;
 
 /// Archive format minor version.
-pub const FORMAT_MINOR: u32 = 0;
+pub const FORMAT_MINOR: u32 = 1;
 
 /// Archive format version as written.
-pub const FORMAT_VERSION: &str = "2.0";
+pub const FORMAT_VERSION: &str = "2.1";
 
 /// This program's version, recorded as the writer.
 pub const WRITER: &str = concat!("cyclarc ", env!("CARGO_PKG_VERSION"));

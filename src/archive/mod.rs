@@ -25,7 +25,8 @@
 //! [`FORMAT_VERSION`]) and `cyclarc.meta`: JSON (writer version, source name, size and
 //! SHA-256, resolved settings, source schema, channels) as one zstd frame with its content
 //! checksum, in base64. A reader refuses a newer major version, and format 1 (one row per
-//! segment); a newer minor version only adds columns or fields.
+//! segment); a newer minor version only adds columns, fields, segment bases or block layouts
+//! (2.1: integer codes range-coded, [`crate::codec::entropy`]; 2.0 blocks are still read).
 //! Beside the archive, `NAME.sha256` records the SHA-256 of the whole archive file.
 //!
 //! Outputs are written to a temporary name in the same folder, fsynced, renamed, and the
@@ -40,5 +41,8 @@ pub mod writer;
 pub use meta::{ArchiveMeta, ChannelMeta, SourceMeta, FORMAT_VERSION};
 pub use reader::{check_blocks, Archive, DigestPolicy, DigestState, Hole};
 pub use schema::SliceRow;
-pub use series::{decode_channels, decode_salvage, segment_list, Salvaged, SegmentInfo};
+pub use series::{
+    decode_channels, decode_salvage, payload_stats, segment_list, PayloadStats, Salvaged,
+    SegmentInfo,
+};
 pub use writer::ArchiveWriter;

@@ -75,6 +75,61 @@ pub fn segment_list(archive: &Archive) -> Result<Vec<SegmentInfo>, crate::error:
     Ok(out)
 }
 
+/// What an archive's payload holds, for measuring the coder against what it codes.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct PayloadStats {
+    /// Bytes of all frames (the `payload` column less its CRC-32s).
+    pub frame_bytes: usize,
+    /// Segments.
+    pub segments: usize,
+    /// Integer codes.
+    pub codes: usize,
+    /// Empirical order-0 entropy of the integer codes, in bytes: one histogram over the whole
+    /// archive, `Σ n_v · log₂(n / n_v) / 8` (Shannon's entropy of the codes' frequencies).
+    pub order0_entropy_bytes: f64,
+}
+
+/// [`PayloadStats`] of an archive, from its frames (checksums checked, nothing rebuilt).
+pub fn payload_stats(archive: &Archive) -> Result<PayloadStats, crate::error::Error> {
+    let spans = block_spans(&archive.rows);
+    let mut hist: std::collections::HashMap<i64, u64> = Default::default();
+    let mut stats = PayloadStats {
+        frame_bytes: 0,
+        segments: 0,
+        codes: 0,
+        order0_entropy_bytes: 0.0,
+    };
+    for s in spans {
+        let (block, _) = read_block(archive, s).map_err(|reason| crate::error::Error::Damaged {
+            file: archive.path.clone(),
+            reason,
+        })?;
+        stats.segments += block.segments.len();
+        for seg in &block.segments {
+            for &c in &seg.codes {
+                *hist.entry(c).or_default() += 1;
+            }
+        }
+    }
+    stats.frame_bytes = archive
+        .rows
+        .iter()
+        .filter_map(|r| r.payload.as_ref())
+        .map(Vec::len)
+        .sum();
+    let n: u64 = hist.values().sum();
+    stats.codes = n as usize;
+    // Summed in increasing code order, so the figure does not depend on the map's order.
+    let mut counts: Vec<(i64, u64)> = hist.into_iter().collect();
+    counts.sort_unstable();
+    stats.order0_entropy_bytes = counts
+        .iter()
+        .map(|&(_, k)| k as f64 * (n as f64 / k as f64).log2())
+        .sum::<f64>()
+        / 8.0;
+    Ok(stats)
+}
+
 /// Check a block's checksum, unpack it, cross-check it with its rows, and rebuild it.
 pub fn unpack_block(
     archive: &Archive,

@@ -278,27 +278,11 @@ fn baselines(path: &Path, s: &Settings) -> Result<(usize, f64)> {
 }
 
 /// The archive's frame bytes, its segments, and the empirical order-0 entropy (bytes) of the
-/// integer codes its frames hold (Shannon, one histogram over the whole archive).
+/// integer codes its frames hold.
 fn payload_bytes(archive: &Path) -> Result<(usize, usize, f64)> {
     let a = Archive::open(archive, DigestPolicy::Skip)?;
-    let (mut frames, mut segments) = (0, 0);
-    let mut hist: std::collections::HashMap<i64, u64> = Default::default();
-    for f in a.rows.iter().filter_map(|r| r.payload.as_ref()) {
-        frames += f.len();
-        let block = cyclarc::codec::parse::decode_block(f)?;
-        segments += block.segments.len();
-        for s in &block.segments {
-            for &c in &s.codes {
-                *hist.entry(c).or_default() += 1;
-            }
-        }
-    }
-    let n: u64 = hist.values().sum();
-    let bits: f64 = hist
-        .values()
-        .map(|&k| k as f64 * (n as f64 / k as f64).log2())
-        .sum();
-    Ok((frames, segments, bits / 8.0))
+    let p = cyclarc::archive::payload_stats(&a)?;
+    Ok((p.frame_bytes, p.segments, p.order0_entropy_bytes))
 }
 
 fn main() -> Result<()> {

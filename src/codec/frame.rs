@@ -3,7 +3,8 @@
 //! Blocks decode independently (prediction restarts at each block), so a reader can fetch a
 //! time range by blocks. Inside a block the bytes are laid out by kind so zstd sees the
 //! redundancy: block header, segment headers, timestamp residuals, non-finite values, integer
-//! codes (LEB128 varints of ZigZag values), then raw lossless bits byte-plane by byte-plane.
+//! codes (one range-coded stream with adaptive contexts, [`crate::codec::entropy`]; LEB128
+//! varints of ZigZag values in block format 1), then raw lossless bits byte-plane by byte-plane.
 //! Every frame carries zstd's content checksum; the archive adds a CRC-32 of the compressed
 //! frame and of the block's rows, so damage is detected before decompression.
 //!
@@ -15,12 +16,16 @@
 
 use integer_encoding::VarInt;
 
+use crate::codec::entropy::{CodeWriter, Family};
 use crate::codec::quant::code_count;
 use crate::model::{Basis, Trend, ValueType};
 pub use crate::model::{Special, SpecialKind};
 
-/// Version byte of the block layout.
-pub const BLOCK_FORMAT: u8 = 1;
+/// Version byte of the block layout this build writes: 2 range-codes the integer codes.
+pub const BLOCK_FORMAT: u8 = 2;
+
+/// The first block layout (integer codes as LEB128 varints), still read.
+pub const BLOCK_FORMAT_VARINT: u8 = 1;
 
 /// Magic bytes at the start of a decompressed block.
 pub(crate) const MAGIC: &[u8; 2] = b"CB";
@@ -62,6 +67,9 @@ pub enum FrameError {
         /// What is wrong.
         what: &'static str,
     },
+    /// The range-coded integer codes do not decode.
+    #[error("codes section: {0}")]
+    Codes(String),
     /// The sections disagree with each other.
     #[error("{0}")]
     Inconsistent(&'static str),
@@ -107,16 +115,7 @@ pub struct SegmentRecord {
 impl SegmentRecord {
     /// How many integer codes the segment has.
     pub fn expected_codes(&self, value_type: ValueType) -> usize {
-        match self.basis {
-            Basis::Fourier => code_count(self.order as usize, self.len),
-            Basis::Trend => {
-                self.trend.map_or(0, |t| t.degree as usize)
-                    + code_count(self.order as usize, self.len)
-            }
-            Basis::Samples => self.len,
-            Basis::Lossless if value_type.is_integer() => self.len - self.specials.len(),
-            Basis::Lossless => 0,
-        }
+        code_layout(self, value_type).iter().map(|p| p.1).sum()
     }
 
     /// How many raw words the segment has.
@@ -222,11 +221,16 @@ fn put<V: VarInt>(out: &mut Vec<u8>, v: V) {
     out.extend_from_slice(&buf[..n]);
 }
 
-/// Serialize a block (before compression).
+/// Serialize a block (before compression) in this build's layout.
 pub fn serialize_block(b: &Block) -> Vec<u8> {
+    serialize_block_as(b, BLOCK_FORMAT)
+}
+
+/// Serialize a block in layout `format` ([`BLOCK_FORMAT`] or [`BLOCK_FORMAT_VARINT`]).
+fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
     let mut head = Vec::new();
     head.extend_from_slice(MAGIC);
-    head.push(BLOCK_FORMAT);
+    head.push(format);
     head.push(vt_tag(b.value_type));
     put(&mut head, b.segments.len() as u64);
     put(&mut head, b.times.start_ns);
@@ -234,7 +238,8 @@ pub fn serialize_block(b: &Block) -> Vec<u8> {
 
     let mut segs = Vec::new();
     let mut specials = Vec::new();
-    let mut codes = Vec::new();
+    let mut coded = CodeWriter::new();
+    let mut varints = Vec::new();
     let mut raw_words: Vec<(u64, usize)> = Vec::new();
     for s in &b.segments {
         segs.push(
@@ -281,8 +286,17 @@ pub fn serialize_block(b: &Block) -> Vec<u8> {
                 SpecialKind::NegInf => specials.push(3),
             }
         }
-        for &c in &s.codes {
-            put(&mut codes, c);
+        if format == BLOCK_FORMAT_VARINT {
+            for &c in &s.codes {
+                put(&mut varints, c);
+            }
+        } else {
+            let mut at = 0;
+            for (family, n) in code_layout(s, b.value_type) {
+                let end = (at + n).min(s.codes.len());
+                coded.segment(family, &s.codes[at..end]);
+                at = end;
+            }
         }
         let width = if b.value_type == ValueType::F32 { 4 } else { 8 };
         raw_words.extend(s.raw.iter().map(|&w| (w, width)));
@@ -318,12 +332,40 @@ pub fn serialize_block(b: &Block) -> Vec<u8> {
         raw.extend(raw_words.iter().map(|&(w, _)| (w >> (8 * plane)) as u8));
     }
 
+    let codes = if format == BLOCK_FORMAT_VARINT {
+        varints
+    } else {
+        coded.finish()
+    };
     let mut out = Vec::with_capacity(head.len() + segs.len() + codes.len() + raw.len() + 40);
     for part in [&head, &segs, &times, &specials, &codes, &raw] {
         put(&mut out, part.len() as u64);
         out.extend_from_slice(part);
     }
     out
+}
+
+/// How a segment's codes divide by what they are, in stream order: a trend segment's
+/// polynomial codes come before its Fourier bins.
+pub(crate) fn code_layout(s: &SegmentRecord, value_type: ValueType) -> Vec<(Family, usize)> {
+    let fourier = if s.predicted {
+        Family::FourierPredicted
+    } else {
+        Family::Fourier
+    };
+    let bins = code_count(s.order as usize, s.len);
+    match s.basis {
+        Basis::Fourier => vec![(fourier, bins)],
+        Basis::Trend => {
+            let degree = s.trend.map_or(0, |t| t.degree as usize);
+            vec![(Family::Trend, degree), (fourier, bins)]
+        }
+        Basis::Samples => vec![(Family::Samples, s.len)],
+        Basis::Lossless if value_type.is_integer() => {
+            vec![(Family::Integer, s.len - s.specials.len())]
+        }
+        Basis::Lossless => vec![],
+    }
 }
 
 /// Compress a serialized block into a zstd frame with its content checksum.
@@ -333,9 +375,24 @@ pub fn compress(bytes: &[u8], level: i32) -> std::io::Result<Vec<u8>> {
     c.compress(bytes)
 }
 
+/// Blocks whose range-coded frame is smaller than this (bytes) are also tried with varint
+/// codes ([`BLOCK_FORMAT_VARINT`]), and the smaller frame is kept: where codes are few or
+/// nearly all zero, zstd's matches over the varints can beat the range coder, which spends a
+/// few dozen bits per context learning what a long run of zeros has to say.
+pub const VARINT_TRIAL_BYTES: usize = 4096;
+
 /// Encode a block to a compressed frame.
 pub fn encode_block(b: &Block, level: i32) -> std::io::Result<Vec<u8>> {
-    compress(&serialize_block(b), level)
+    let frame = compress(&serialize_block(b), level)?;
+    if frame.len() >= VARINT_TRIAL_BYTES {
+        return Ok(frame);
+    }
+    let varint = compress(&serialize_block_as(b, BLOCK_FORMAT_VARINT), level)?;
+    Ok(if varint.len() < frame.len() {
+        varint
+    } else {
+        frame
+    })
 }
 
 /// CRC-32 (IEEE) of a compressed frame, as stored in the archive.

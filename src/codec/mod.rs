@@ -6,6 +6,7 @@
 
 pub mod decode;
 pub mod encode;
+pub mod entropy;
 pub mod estimate;
 pub mod fit;
 pub mod frame;

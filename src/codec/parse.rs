@@ -4,8 +4,10 @@
 
 use integer_encoding::VarInt;
 
+use crate::codec::entropy::CodeReader;
 use crate::codec::frame::{
-    vt_from_tag, Block, BlockTimes, FrameError, SegmentRecord, BLOCK_FORMAT, MAGIC, MAX_BLOCK_BYTES,
+    code_layout, vt_from_tag, Block, BlockTimes, FrameError, SegmentRecord, BLOCK_FORMAT,
+    BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
 };
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
@@ -97,6 +99,42 @@ impl<'a> Cursor<'a> {
     }
 }
 
+/// Most integer codes a block may hold (as many as [`MAX_BLOCK_BYTES`] holds 64-bit values):
+/// a damaged count cannot make the reader allocate more.
+const MAX_BLOCK_CODES: usize = MAX_BLOCK_BYTES / 8;
+
+/// Where a block's integer codes come from: varints (block format 1) or the range-coded
+/// stream (format 2).
+enum Codes<'a> {
+    Varint(Cursor<'a>),
+    Range(Box<CodeReader>),
+}
+
+impl Codes<'_> {
+    /// The integer codes of the next segment.
+    fn read(&mut self, rec: &SegmentRecord, vt: ValueType) -> Result<Vec<i64>, FrameError> {
+        let n = rec.expected_codes(vt);
+        match self {
+            Codes::Varint(cc) => {
+                if n > cc.buf.len() - cc.pos.min(cc.buf.len()) {
+                    return Err(cc.err("more codes than bytes"));
+                }
+                (0..n).map(|_| cc.var::<i64>()).collect()
+            }
+            Codes::Range(r) => {
+                let mut out = Vec::with_capacity(n);
+                for (family, count) in code_layout(rec, vt) {
+                    let part = r
+                        .segment(family, count)
+                        .map_err(|e| FrameError::Codes(e.to_string()))?;
+                    out.extend_from_slice(&part);
+                }
+                Ok(out)
+            }
+        }
+    }
+}
+
 /// Parse a decompressed block. Never panics on malformed input.
 pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
     let mut outer = Cursor::new(bytes, "block");
@@ -111,7 +149,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         return Err(FrameError::BadMagic);
     }
     let fmt = h.byte()?;
-    if fmt != BLOCK_FORMAT {
+    if fmt != BLOCK_FORMAT && fmt != BLOCK_FORMAT_VARINT {
         return Err(FrameError::UnsupportedFormat(fmt));
     }
     let value_type = vt_from_tag(h.byte()?).ok_or_else(|| h.err("unknown value type"))?;
@@ -122,7 +160,13 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
 
     let mut sc = Cursor::new(parts[1], "segment headers");
     let mut sp = Cursor::new(parts[3], "specials");
-    let mut cc = Cursor::new(parts[4], "codes");
+    let mut codes = if fmt == BLOCK_FORMAT_VARINT {
+        Codes::Varint(Cursor::new(parts[4], "codes"))
+    } else {
+        let r = CodeReader::new(parts[4]).map_err(|e| FrameError::Codes(e.to_string()))?;
+        Codes::Range(Box::new(r))
+    };
+    let mut codes_total = 0usize;
     let width = if value_type == ValueType::F32 { 4 } else { 8 };
     let raw_bytes = parts[5];
     if raw_bytes.len() % width != 0 {
@@ -210,13 +254,11 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             trend,
             warp,
         };
-        let ncodes = rec.expected_codes(value_type);
-        if ncodes > parts[4].len() {
-            return Err(cc.err("more codes than bytes"));
+        codes_total += rec.expected_codes(value_type);
+        if codes_total > MAX_BLOCK_CODES {
+            return Err(FrameError::TooLarge);
         }
-        rec.codes = (0..ncodes)
-            .map(|_| cc.var::<i64>())
-            .collect::<Result<_, _>>()?;
+        rec.codes = codes.read(&rec, value_type)?;
         let nraw = rec.expected_raw(value_type);
         if raw_taken + nraw > raw_total {
             return Err(FrameError::Inconsistent("raw section too short"));
@@ -235,7 +277,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
     }
     sc.done()?;
     sp.done()?;
-    cc.done()?;
+    if let Codes::Varint(cc) = &codes {
+        cc.done()?;
+    }
     if raw_taken != raw_total {
         return Err(FrameError::Inconsistent("raw section too long"));
     }

@@ -5,8 +5,6 @@
 //!
 //! Quasi-periodic (heartbeats at a varying rate), with premature beats, artifacts and mains
 //! interference: a hard case for a periodic model, so every bound is checked on it.
-use std::path::Path;
-
 use crate::support::codec::*;
 use cyclarc::baseline::time_domain_bytes;
 use cyclarc::codec::fit::fit_samples;
@@ -14,34 +12,14 @@ use cyclarc::codec::{encode_run, RunParams};
 use cyclarc::model::ValueType;
 use cyclarc::options::EncodeOptions;
 use cyclarc::signal::{fill_non_finite, RealFft, ScalarFft};
-use cyclarc::source::Source;
-use cyclarc::source::{assemble, ChannelSamples};
 
 const ECG: &str = "tests/data/ecg-mitbih-208.parquet";
 
 /// The record through cyclarc's reader and assembler: (values, sample rate, value type).
 fn read_ecg() -> (cyclarc::model::Run, f64, ValueType) {
-    let path = Path::new(ECG);
-    let s = settings(EncodeOptions::default());
-    let mut src = Source::open(path, &s.source).expect("reference file opens");
-    let mut samples = ChannelSamples::default();
-    while let Some(chunks) = src.next_chunks() {
-        for c in chunks.expect("reference file reads") {
-            assert_eq!(c.channel, 0, "one channel");
-            samples.extend(c);
-        }
-    }
-    // Long layout: channels are known once read.
-    assert_eq!(src.schema.channels.len(), 1);
-    let info = src.schema.channels[0].clone();
-    assert_eq!(info.name, "ecg_mlii");
-    let ch = assemble(path, info.clone(), samples, None).expect("assembles");
-    assert_eq!(ch.runs.len(), 1, "one run without holes");
-    (
-        ch.runs.into_iter().next().unwrap(),
-        ch.sample_rate.unwrap(),
-        info.value_type,
-    )
+    let (name, run, fs, vt) = read_reference(ECG);
+    assert_eq!(name, "ecg_mlii");
+    (run, fs, vt)
 }
 
 #[test]

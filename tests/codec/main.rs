@@ -5,6 +5,7 @@
 mod support;
 
 mod closed_forms;
+mod coder;
 mod drift;
 mod ecg;
 mod fft_reference;

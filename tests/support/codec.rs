@@ -6,6 +6,29 @@ use cyclarc::model::Run;
 use cyclarc::model::SpecialKind;
 use cyclarc::options::{EncodeOptions, Settings};
 
+/// A one-channel reference file through cyclarc's reader and assembler: (channel name, its one
+/// run, sample rate, value type).
+pub fn read_reference(path: &str) -> (String, Run, f64, cyclarc::model::ValueType) {
+    use cyclarc::source::{assemble, ChannelSamples, Source};
+    let path = std::path::Path::new(path);
+    let s = settings(EncodeOptions::default());
+    let mut src = Source::open(path, &s.source).expect("reference file opens");
+    let mut samples = ChannelSamples::default();
+    while let Some(chunks) = src.next_chunks() {
+        for c in chunks.expect("reference file reads") {
+            assert_eq!(c.channel, 0, "one channel");
+            samples.extend(c);
+        }
+    }
+    // Long layout: channels are known once read.
+    assert_eq!(src.schema.channels.len(), 1);
+    let info = src.schema.channels[0].clone();
+    let ch = assemble(path, info.clone(), samples, None).expect("assembles");
+    assert_eq!(ch.runs.len(), 1, "one run without holes");
+    let run = ch.runs.into_iter().next().unwrap();
+    (info.name, run, ch.sample_rate.unwrap(), info.value_type)
+}
+
 /// A run from values at sample rate `fs`, starting at [`T0`].
 pub fn run_of(values: &[f64], fs: f64) -> Run {
     let times = (0..values.len())
