@@ -78,7 +78,7 @@
 //! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block
 //! whose codes zstd alone packs smaller is written with varint codes instead (block layout 1).
 //!
-//! **Archive.** One Parquet file, one row per second of a block's segments (format 2.1); the
+//! **Archive.** One Parquet file, one row per second of a block's segments (format 3.0); the
 //! schema, its columns and the version rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
 //! exactly, and NaN, ±Inf and null values exactly where they were.
 //!

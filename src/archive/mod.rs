@@ -25,8 +25,10 @@
 //! [`FORMAT_VERSION`]) and `cyclarc.meta`: JSON (writer version, source name, size and
 //! SHA-256, resolved settings, source schema, channels) as one zstd frame with its content
 //! checksum, in base64. A reader refuses a newer major version, and format 1 (one row per
-//! segment); a newer minor version only adds columns, fields, segment bases or block layouts
-//! (2.1: integer codes range-coded, [`crate::codec::entropy`]; 2.0 blocks are still read).
+//! segment), and reads format 2 (varint codes, metadata compressed without the dictionary); a
+//! newer minor version only adds columns, fields, segment bases or block layouts. Format 3:
+//! integer codes range-coded ([`crate::codec::entropy`]), metadata compressed against
+//! [`meta::META_DICTIONARY`].
 //! Beside the archive, `NAME.sha256` records the SHA-256 of the whole archive file.
 //!
 //! Outputs are written to a temporary name in the same folder, fsynced, renamed, and the

@@ -232,18 +232,18 @@ fn damaged_cyclarc_metadata_is_reported() {
         ("middle", meta + packed.len() / 2, 2, &bad_meta),
         // The end: inside the content checksum.
         ("end", meta + packed.len() - 3, 0, &bad_meta),
-        // `2.0` → `0.0`: no such version.
+        // `3.0` → `s.0`: no such version.
         (
-            "format 0",
+            "format s",
             version,
-            1,
+            6,
             &["damaged archive", "format version"],
         ),
-        // `2.0` → `3.0`: looks newer; only the digest can tell it is damage.
+        // `3.0` → `7.0`: looks newer; only the digest can tell it is damage.
         (
-            "format 3",
+            "format 7",
             version,
-            0,
+            2,
             &["newer than this cyclarc understands"],
         ),
     ];
@@ -261,7 +261,7 @@ fn damaged_cyclarc_metadata_is_reported() {
         // Without it: the reader's own checks.
         let digest = std::fs::read(&dp).expect("digest");
         std::fs::remove_file(&dp).expect("remove digest");
-        let code = if what == "format 3" { 2 } else { 1 };
+        let code = if what == "format 7" { 2 } else { 1 };
         let before = lab.tree();
         let ran = lab.run(&["decode", ps(&arch), "--out", ps(&out)]);
         ran.expect(code).says(says);
@@ -347,8 +347,8 @@ fn rewrite_as(arch: &Path, out: &Path, version: &str, extra: bool) {
 fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
     let lab = Lab::new();
     let (src, arch, clean) = archived(&lab);
-    let v2 = lab.path("v3.cyclarc.parquet");
-    rewrite_as(&arch, &v2, "3.0", false);
+    let v2 = lab.path("v4.cyclarc.parquet");
+    rewrite_as(&arch, &v2, "4.0", false);
     let out = lab.path("d.parquet");
     for args in [
         vec!["decode", ps(&v2), "--out", ps(&out)],
@@ -360,8 +360,8 @@ fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
             &args,
             2,
             &[
-                "v3.cyclarc.parquet",
-                "archive format 3.0 is newer than this cyclarc understands (2)",
+                "v4.cyclarc.parquet",
+                "archive format 4.0 is newer than this cyclarc understands (3)",
                 "upgrade cyclarc",
             ],
         );
@@ -378,9 +378,9 @@ fn a_newer_major_format_is_refused_and_a_newer_minor_is_read() {
             "archive format 1.2 was written by cyclarc 0.1",
         ],
     );
-    // 2.7: an added column and an added metadata field; this build reads what it knows.
-    let v17 = lab.path("v27.cyclarc.parquet");
-    rewrite_as(&arch, &v17, "2.7", true);
+    // 3.7: an added column and an added metadata field; this build reads what it knows.
+    let v17 = lab.path("v37.cyclarc.parquet");
+    rewrite_as(&arch, &v17, "3.7", true);
     lab.run(&["verify", ps(&v17), "--source", ps(&src)])
         .expect(0);
     lab.run(&["decode", ps(&v17), "--out", ps(&out)]).expect(0);

@@ -138,10 +138,15 @@ pub fn unpack_meta(value: &str) -> Vec<u8> {
     let z = base64::engine::general_purpose::STANDARD
         .decode(value)
         .expect("cyclarc.meta is base64");
-    zstd::decode_all(z.as_slice()).expect("cyclarc.meta is a zstd frame")
+    // README: compressed against the format's raw-content dictionary.
+    let mut d = zstd::bulk::Decompressor::with_dictionary(cyclarc::archive::meta::META_DICTIONARY)
+        .expect("dictionary loads");
+    d.decompress(&z, 64 << 20)
+        .expect("cyclarc.meta is a zstd frame")
 }
 
-/// A `cyclarc.meta` value holding `json`.
+/// A `cyclarc.meta` value holding `json`, compressed without the dictionary (as format 2
+/// wrote it): readers take both.
 pub fn pack_meta(json: &[u8]) -> String {
     use base64::Engine;
     base64::engine::general_purpose::STANDARD.encode(zstd::encode_all(json, 3).expect("zstd"))
