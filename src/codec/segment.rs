@@ -255,11 +255,14 @@ struct TrackBlock {
 
 impl TrackBlock {
     /// The fundamental at sample position `t`, linear between the two window centres.
+    /// Beyond the centres the line is extended, but never below half the lower of the two
+    /// or above twice the higher (a segment longer than a window reaches far past them).
     fn hz_at(&self, t: f64) -> f64 {
         let (c0, f0) = self.here;
         let (c1, f1) = self.next;
         if c1 > c0 {
-            f0 + (f1 - f0) * (t - c0) / (c1 - c0)
+            let f = f0 + (f1 - f0) * (t - c0) / (c1 - c0);
+            f.clamp(0.5 * f0.min(f1), 2.0 * f0.max(f1))
         } else {
             f0
         }
@@ -403,7 +406,9 @@ impl Planner {
                     let mut ahead = None;
                     if let Some(tb) = *block {
                         if start >= tb.end {
-                            self.block_start = tb.end;
+                            // The block holding `start`: a segment longer than a window
+                            // can step past several.
+                            self.block_start = tb.end + (start - tb.end) / w * w;
                             ahead = Some(tb.ahead);
                             *block = None;
                         }

@@ -199,3 +199,58 @@ fn drift_loss_of_tracking_against_the_same_machine_at_constant_speed() {
         "drift loss {loss} vs fixed-period loss {fixed_loss}"
     );
 }
+
+#[test]
+fn segments_longer_than_the_tracking_window_follow_the_speed_in_order() {
+    // A shaft at 25 Hz whose speed runs up and down ±10 % (a triangle, 10 s each way) for
+    // 200 s, cut at 23 cycles per segment (about 0.9 s) against a 0.5 s tracking window: each
+    // segment steps past a window. The cut must stay contiguous and follow the speed of the
+    // signal's own definition, f(t) = 25·(1 + 0.1·tri(t/10 s)). (A cut that fell one window
+    // further behind the tracker at every segment once extrapolated the speed below zero and
+    // sent boundaries backwards, two minutes into such a run.)
+    let fs = 2_000.0;
+    let n = (200.0 * fs) as usize;
+    let tri = |t: f64| {
+        let u = (t / 10.0) % 2.0;
+        if u < 1.0 {
+            2.0 * u - 1.0
+        } else {
+            3.0 - 2.0 * u
+        }
+    };
+    let speed = |t: f64| 25.0 * (1.0 + 0.1 * tri(t));
+    let mut phase = 0.0f64;
+    let x: Vec<f64> = (0..n)
+        .map(|i| {
+            let v = phase.sin() + 0.3 * (2.0 * phase + 0.9).sin();
+            phase += 2.0 * PI * speed(i as f64 / fs) / fs;
+            v
+        })
+        .collect();
+    let s = settings(EncodeOptions {
+        budget_rel: Some(BUDGET_REL),
+        cycles_per_segment: Some(23),
+        ..Default::default()
+    });
+    let run = run_of(&x, fs);
+    let p = RunParams::new("shaft", ValueType::F64, Some(fs), &s.codec);
+    let enc = encode_run(&run, &p).unwrap();
+    let segs = &enc.plan.segments;
+    let mut at = 0;
+    for seg in segs {
+        assert_eq!(seg.start, at, "contiguous");
+        at += seg.len;
+        if seg.cycles == 23 {
+            let mid = (seg.start as f64 + 0.5 * seg.len as f64) / fs;
+            let f_cut = 23.0 * fs / seg.len as f64;
+            assert!(
+                (f_cut / speed(mid) - 1.0).abs() < 0.05,
+                "segment at {}: cut at {f_cut:.2} Hz, speed {:.2} Hz",
+                seg.start,
+                speed(mid)
+            );
+        }
+    }
+    assert_eq!(at, x.len(), "the cut covers the run");
+    assert!(segs.iter().filter(|s| s.cycles == 23).count() > 150);
+}
