@@ -103,8 +103,8 @@ impl<'a> Cursor<'a> {
 /// a damaged count cannot make the reader allocate more.
 const MAX_BLOCK_CODES: usize = MAX_BLOCK_BYTES / 8;
 
-/// Where a block's integer codes come from: varints (block format 1) or the range-coded
-/// stream (format 2).
+/// Where a block's integer codes come from: varints (block layout 1) or the range-coded
+/// stream (block layout 2).
 enum Codes<'a> {
     Varint(Cursor<'a>),
     Range(Box<CodeReader>),
