@@ -20,7 +20,7 @@
 //! Adaptation: after each symbol s the cumulative distribution moves a fraction 2^−rate of
 //! the way toward the one that puts all free mass on s, keeping every symbol's probability at
 //! least 2^−24 (the CDF adaptation of the AV1 bitstream's symbol coder, AV1 specification
-//! §8.2.6, "from memory": rate = 3 + [count > 15] + [count > 31] + min(⌊log₂ A⌋, 2) for an
+//! §8.2.6, "from memory": `rate = 3 + [count > 15] + [count > 31] + min(⌊log₂ A⌋, 2)` for an
 //! A-symbol alphabet). Integer arithmetic only: encoder and decoder compute the same
 //! probabilities on any machine. The range coder itself is the `constriction` crate's.
 //!
