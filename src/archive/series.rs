@@ -82,8 +82,6 @@ pub struct PayloadStats {
     pub frame_bytes: usize,
     /// Segments.
     pub segments: usize,
-    /// Integer codes.
-    pub codes: usize,
     /// Empirical order-0 entropy of the integer codes, in bytes: one histogram over the whole
     /// archive, `Σ n_v · log₂(n / n_v) / 8` (Shannon's entropy of the codes' frequencies).
     pub order0_entropy_bytes: f64,
@@ -96,7 +94,6 @@ pub fn payload_stats(archive: &Archive) -> Result<PayloadStats, crate::error::Er
     let mut stats = PayloadStats {
         frame_bytes: 0,
         segments: 0,
-        codes: 0,
         order0_entropy_bytes: 0.0,
     };
     for s in spans {
@@ -118,7 +115,6 @@ pub fn payload_stats(archive: &Archive) -> Result<PayloadStats, crate::error::Er
         .map(Vec::len)
         .sum();
     let n: u64 = hist.values().sum();
-    stats.codes = n as usize;
     // Summed in increasing code order, so the figure does not depend on the map's order.
     let mut counts: Vec<(i64, u64)> = hist.into_iter().collect();
     counts.sort_unstable();

@@ -115,7 +115,11 @@ pub struct SegmentRecord {
 impl SegmentRecord {
     /// How many integer codes the segment has.
     pub fn expected_codes(&self, value_type: ValueType) -> usize {
-        code_layout(self, value_type).iter().map(|p| p.1).sum()
+        code_layout(self, value_type)
+            .into_iter()
+            .flatten()
+            .map(|p| p.1)
+            .sum()
     }
 
     /// How many raw words the segment has.
@@ -238,7 +242,8 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
 
     let mut segs = Vec::new();
     let mut specials = Vec::new();
-    let mut coded = CodeWriter::new();
+    // The range coder's models (some 100 kB) are set up only for the layout that uses them.
+    let mut coded = (format != BLOCK_FORMAT_VARINT).then(CodeWriter::new);
     let mut varints = Vec::new();
     let mut raw_words: Vec<(u64, usize)> = Vec::new();
     for s in &b.segments {
@@ -286,16 +291,19 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                 SpecialKind::NegInf => specials.push(3),
             }
         }
-        if format == BLOCK_FORMAT_VARINT {
-            for &c in &s.codes {
-                put(&mut varints, c);
+        match coded.as_mut() {
+            None => {
+                for &c in &s.codes {
+                    put(&mut varints, c);
+                }
             }
-        } else {
-            let mut at = 0;
-            for (family, n) in code_layout(s, b.value_type) {
-                let end = (at + n).min(s.codes.len());
-                coded.segment(family, &s.codes[at..end]);
-                at = end;
+            Some(coded) => {
+                let mut at = 0;
+                for (family, n) in code_layout(s, b.value_type).into_iter().flatten() {
+                    let end = (at + n).min(s.codes.len());
+                    coded.segment(family, &s.codes[at..end]);
+                    at = end;
+                }
             }
         }
         let width = if b.value_type == ValueType::F32 { 4 } else { 8 };
@@ -332,10 +340,9 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
         raw.extend(raw_words.iter().map(|&(w, _)| (w >> (8 * plane)) as u8));
     }
 
-    let codes = if format == BLOCK_FORMAT_VARINT {
-        varints
-    } else {
-        coded.finish()
+    let codes = match coded {
+        None => varints,
+        Some(coded) => coded.finish(),
     };
     let mut out = Vec::with_capacity(head.len() + segs.len() + codes.len() + raw.len() + 40);
     for part in [&head, &segs, &times, &specials, &codes, &raw] {
@@ -346,8 +353,12 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
 }
 
 /// How a segment's codes divide by what they are, in stream order: a trend segment's
-/// polynomial codes come before its Fourier bins.
-pub(crate) fn code_layout(s: &SegmentRecord, value_type: ValueType) -> Vec<(Family, usize)> {
+/// polynomial codes come before its Fourier bins. Unused parts are `None` (an empty part
+/// is not the same as none: it would still move the family's neighbour history).
+pub(crate) type CodeLayout = [Option<(Family, usize)>; 2];
+
+/// The [`CodeLayout`] of a segment.
+pub(crate) fn code_layout(s: &SegmentRecord, value_type: ValueType) -> CodeLayout {
     let fourier = if s.predicted {
         Family::FourierPredicted
     } else {
@@ -355,16 +366,16 @@ pub(crate) fn code_layout(s: &SegmentRecord, value_type: ValueType) -> Vec<(Fami
     };
     let bins = code_count(s.order as usize, s.len);
     match s.basis {
-        Basis::Fourier => vec![(fourier, bins)],
+        Basis::Fourier => [Some((fourier, bins)), None],
         Basis::Trend => {
             let degree = s.trend.map_or(0, |t| t.degree as usize);
-            vec![(Family::Trend, degree), (fourier, bins)]
+            [Some((Family::Trend, degree)), Some((fourier, bins))]
         }
-        Basis::Samples => vec![(Family::Samples, s.len)],
+        Basis::Samples => [Some((Family::Samples, s.len)), None],
         Basis::Lossless if value_type.is_integer() => {
-            vec![(Family::Integer, s.len - s.specials.len())]
+            [Some((Family::Integer, s.len - s.specials.len())), None]
         }
-        Basis::Lossless => vec![],
+        Basis::Lossless => [None, None],
     }
 }
 

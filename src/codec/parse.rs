@@ -6,8 +6,8 @@ use integer_encoding::VarInt;
 
 use crate::codec::entropy::CodeReader;
 use crate::codec::frame::{
-    code_layout, vt_from_tag, Block, BlockTimes, FrameError, SegmentRecord, BLOCK_FORMAT,
-    BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
+    code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, SegmentRecord,
+    BLOCK_FORMAT, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
 };
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
@@ -111,9 +111,8 @@ enum Codes<'a> {
 }
 
 impl Codes<'_> {
-    /// The integer codes of the next segment.
-    fn read(&mut self, rec: &SegmentRecord, vt: ValueType) -> Result<Vec<i64>, FrameError> {
-        let n = rec.expected_codes(vt);
+    /// The `n` integer codes of the next segment, laid out as `layout`.
+    fn read(&mut self, n: usize, layout: CodeLayout) -> Result<Vec<i64>, FrameError> {
         match self {
             Codes::Varint(cc) => {
                 if n > cc.buf.len() - cc.pos.min(cc.buf.len()) {
@@ -123,7 +122,7 @@ impl Codes<'_> {
             }
             Codes::Range(r) => {
                 let mut out = Vec::with_capacity(n);
-                for (family, count) in code_layout(rec, vt) {
+                for (family, count) in layout.into_iter().flatten() {
                     let part = r
                         .segment(family, count)
                         .map_err(|e| FrameError::Codes(e.to_string()))?;
@@ -254,11 +253,13 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             trend,
             warp,
         };
-        codes_total += rec.expected_codes(value_type);
+        let layout = code_layout(&rec, value_type);
+        let n: usize = layout.into_iter().flatten().map(|p| p.1).sum();
+        codes_total += n;
         if codes_total > MAX_BLOCK_CODES {
             return Err(FrameError::TooLarge);
         }
-        rec.codes = codes.read(&rec, value_type)?;
+        rec.codes = codes.read(n, layout)?;
         let nraw = rec.expected_raw(value_type);
         if raw_taken + nraw > raw_total {
             return Err(FrameError::Inconsistent("raw section too short"));
