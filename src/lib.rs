@@ -73,12 +73,18 @@
 //! up, and measured at a power-of-two scale when their squares would leave f64's range, so
 //! a tiny error is never recorded as 0 ([`signal::rms_of`]).
 //!
+//! **Peak guard.** With a peak limit X (`--peak-max`), no decoded sample differs from its
+//! source value by more than X: samples the fit would miss by more get sparse time-domain
+//! corrections ([`codec::guard`]), aimed at X less the floating-point margin (one count on
+//! integer channels). Each guarded segment records its largest error, rounded up; `verify`
+//! checks every sample against the limit and that record.
+//!
 //! **Coding.** A block's integer codes (quantized bins, trend coefficients, time-domain
 //! samples) form one range-coded stream with adaptive probabilities in contexts
 //! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block
 //! whose codes zstd alone packs smaller is written with varint codes instead (block layout 1).
 //!
-//! **Archive.** One Parquet file, one row per second of a block's segments (format 3.0); the
+//! **Archive.** One Parquet file, one row per second of a block's segments (format 3.1); the
 //! schema, its columns and the version rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
 //! exactly, and NaN, ±Inf and null values exactly where they were.
 //!

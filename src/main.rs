@@ -107,6 +107,10 @@ struct EncodeArgs {
     /// Absolute floor under a relative budget (channel units; default 0).
     #[arg(long, requires = "budget_rel", allow_negative_numbers = true)]
     budget_floor: Option<f64>,
+    /// Peak guard: no decoded sample may differ from its source value by more than this
+    /// (channel units); samples that would are corrected, and `verify` checks it.
+    #[arg(long, allow_negative_numbers = true)]
+    peak_max: Option<f64>,
     /// Fundamental frequency in Hz (used as is, no tracking).
     #[arg(long, conflicts_with = "fundamental")]
     fundamental_hz: Option<f64>,
@@ -148,6 +152,7 @@ impl EncodeArgs {
             budget_rms: self.budget_rms,
             budget_rel: self.budget_rel,
             budget_floor: self.budget_floor,
+            peak_max: self.peak_max,
             fundamental: self
                 .fundamental_hz
                 .map(|f| f.to_string())

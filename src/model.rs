@@ -326,4 +326,6 @@ pub struct ChannelSeries {
     pub specials: Vec<(usize, SpecialKind)>,
     /// Per archive row of the channel: (row index, sample range in this series).
     pub segments: Vec<(usize, std::ops::Range<usize>)>,
+    /// Per entry of `segments`: the peak error its segment claims (peak guard only).
+    pub peaks: Vec<Option<f32>>,
 }

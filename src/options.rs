@@ -99,6 +99,17 @@ pub struct BudgetRule {
     pub floor: Option<f64>,
 }
 
+/// A per-channel peak limit: channels whose name matches the glob pattern get this limit
+/// instead of the default `peak_max`.
+#[derive(Debug, Clone, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct PeakRule {
+    /// Glob pattern over channel names (`*`, `?`, `[…]`).
+    pub channels: String,
+    /// Largest absolute error of any decoded sample (channel units).
+    pub max: f64,
+}
+
 /// The job specification (flags and pipeline files fill this same type).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -111,6 +122,11 @@ pub struct EncodeOptions {
     pub budget_floor: Option<f64>,
     /// Per-channel budgets; the first matching rule wins over the default budget.
     pub budgets: Vec<BudgetRule>,
+    /// Peak guard: largest absolute error of any decoded sample (channel units). Default:
+    /// none (only the RMS budget holds).
+    pub peak_max: Option<f64>,
+    /// Per-channel peak limits; the first matching rule wins over `peak_max`.
+    pub peaks: Vec<PeakRule>,
     /// "auto" (default), "none", or a frequency in Hz.
     pub fundamental: Option<String>,
     /// Whole cycles per segment. Default: fewest spanning 200 ms.
@@ -159,6 +175,12 @@ struct SettingsRecord<'a> {
     zstd_level: i32,
     block_segments: usize,
     block_samples: usize,
+    // Absent when unset, so that an archive written without a guard records the settings
+    // as builds before the guard did.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    peak_max: Option<f64>,
+    #[serde(skip_serializing_if = "<[_]>::is_empty")]
+    peak_rules: &'a [(String, f64)],
 }
 
 impl Serialize for Settings {
@@ -178,6 +200,8 @@ impl Serialize for Settings {
             zstd_level: c.zstd_level,
             block_segments: c.block_segments,
             block_samples: c.block_samples,
+            peak_max: c.peak_max,
+            peak_rules: &c.peak_rules,
         }
         .serialize(s)
     }
@@ -188,12 +212,14 @@ impl EncodeOptions {
     pub fn overlay(&self, over: &EncodeOptions) -> EncodeOptions {
         macro_rules! pick {
             ($($f:ident),*) => { EncodeOptions { $($f: over.$f.clone().or_else(|| self.$f.clone()),)*
-                budgets: if over.budgets.is_empty() { self.budgets.clone() } else { over.budgets.clone() } } };
+                budgets: if over.budgets.is_empty() { self.budgets.clone() } else { over.budgets.clone() },
+                peaks: if over.peaks.is_empty() { self.peaks.clone() } else { over.peaks.clone() } } };
         }
         let mut o = pick!(
             budget_rms,
             budget_rel,
             budget_floor,
+            peak_max,
             fundamental,
             cycles_per_segment,
             layout,
@@ -243,6 +269,25 @@ impl EncodeOptions {
                 reason: format!("rule for `{}` sets neither rms nor rel", r.channels),
             })?;
             budget_rules.push((r.channels.clone(), b));
+        }
+        // A peak limit is recorded per segment as f32 and must be a usable number.
+        let peak = |name: &str, v: f64| -> Result<f64> {
+            if !(v.is_finite() && v > 0.0 && v <= MAX_BUDGET) {
+                return Err(Error::InvalidOption {
+                    name: name.to_string(),
+                    reason: format!("must be a finite number > 0 (channel units), got {v}"),
+                });
+            }
+            Ok(v)
+        };
+        let peak_max = self.peak_max.map(|v| peak("peak-max", v)).transpose()?;
+        let mut peak_rules = Vec::new();
+        for r in &self.peaks {
+            glob::Pattern::new(&r.channels).map_err(|e| Error::InvalidOption {
+                name: "peaks.channels".into(),
+                reason: format!("`{}`: {e}", r.channels),
+            })?;
+            peak_rules.push((r.channels.clone(), peak("peaks.max", r.max)?));
         }
         let fundamental = match self.fundamental.as_deref().map(str::trim) {
             None | Some("auto") => FundamentalSetting::Auto,
@@ -309,6 +354,8 @@ impl EncodeOptions {
                 zstd_level,
                 block_segments,
                 block_samples: DEFAULT_BLOCK_SAMPLES,
+                peak_max,
+                peak_rules,
             },
         })
     }

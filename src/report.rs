@@ -36,6 +36,15 @@ pub struct ChannelInspect {
     pub worst_error_over_budget: f64,
     /// Fundamental: how found, and value (Hz).
     pub fundamental: String,
+    /// The channel's peak limit (peak guard), if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub peak_max: Option<f64>,
+    /// The largest peak error its guarded segments claim.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub worst_peak: Option<f64>,
+    /// Samples the peak guard corrected.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub corrected_samples: Option<usize>,
 }
 
 /// How the archive's bytes split.
@@ -114,6 +123,12 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
         let bytes = pay + (other * rows.len() as f64 / total_rows).round() as u64;
         let samples: u64 = rows.iter().map(|r| r.samples as u64).sum();
         let worst = rows.iter().map(|r| r.budget_use as f64).fold(0.0, f64::max);
+        let guarded = cm.peak_max.is_some() || segs.iter().any(|s| s.peak.is_some());
+        let worst_peak = segs
+            .iter()
+            .filter_map(|s| s.peak)
+            .map(f64::from)
+            .fold(None, |m: Option<f64>, p| Some(m.map_or(p, |m| m.max(p))));
         channels.push(ChannelInspect {
             channel: cm.name.clone(),
             value_type: cm.value_type.name().into(),
@@ -149,6 +164,10 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
                     },
                 }
             },
+            peak_max: cm.peak_max,
+            worst_peak,
+            corrected_samples: guarded
+                .then(|| segs.iter().filter_map(|s| s.corrected).sum::<usize>()),
         });
     }
     Inspect {
@@ -270,6 +289,17 @@ pub fn inspect_text(i: &Inspect) -> String {
         ],
         &rows,
     ));
+    for c in &i.channels {
+        if let Some(limit) = c.peak_max {
+            s.push_str(&format!(
+                "peak guard on {}: every sample within {limit} (largest claimed {}), {} \
+                 samples corrected\n",
+                c.channel,
+                c.worst_peak.map_or("-".into(), |p| format!("{p:.4e}")),
+                c.corrected_samples.unwrap_or(0)
+            ));
+        }
+    }
     let b = &i.bytes;
     let pct = |x: u64| 100.0 * x as f64 / b.total.max(1) as f64;
     s.push_str(&format!(
@@ -376,7 +406,10 @@ pub fn verify_text(v: &VerifyReport) -> String {
                 c.samples.to_string(),
                 format!("{:.4e}", c.worst_error_rms),
                 format!("{:.3}", c.worst_error_over_budget),
-                format!("{:.4e}", c.max_abs_error),
+                match c.peak_max {
+                    Some(limit) => format!("{:.4e} ≤ {limit:.4e}", c.max_abs_error),
+                    None => format!("{:.4e}", c.max_abs_error),
+                },
             ]
         })
         .collect();
@@ -387,7 +420,7 @@ pub fn verify_text(v: &VerifyReport) -> String {
             "samples",
             "worst rms err",
             "err/budget",
-            "max |err| (not bounded)",
+            "max |err| (≤ peak limit where guarded)",
         ],
         &rows,
     );

@@ -15,10 +15,10 @@ use crate::model::{ChannelInfo, Layout, SourceSchema, ValueType};
 pub const FORMAT_MAJOR: u32 = 3;
 
 /// Archive format minor version.
-pub const FORMAT_MINOR: u32 = 0;
+pub const FORMAT_MINOR: u32 = 1;
 
 /// Archive format version as written.
-pub const FORMAT_VERSION: &str = "3.0";
+pub const FORMAT_VERSION: &str = "3.1";
 
 /// The oldest major version this build reads (2: the same layout, with varint codes and
 /// metadata compressed without [`META_DICTIONARY`]).
@@ -144,6 +144,10 @@ pub struct ChannelMeta {
     /// The channel's budget rule, which each segment's budget was resolved from (on the RMS
     /// of its source's finite values).
     pub budget: Option<Budget>,
+    /// The channel's peak limit ([`crate::codec::guard`]): no decoded sample differs from
+    /// its source value by more than this (channel units). Absent without a guard.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub peak_max: Option<f64>,
 }
 
 impl ChannelMeta {
@@ -169,6 +173,7 @@ impl ChannelMeta {
             runner_up_hz: None,
             blocks: None,
             budget: None,
+            peak_max: None,
         }
     }
 

@@ -40,6 +40,12 @@ pub struct SegmentInfo {
     pub cycles: Option<u32>,
     /// Its archive row.
     pub row: usize,
+    /// The peak error the segment claims (peak guard only, [`crate::codec::guard`]).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub peak: Option<f32>,
+    /// Samples the peak guard corrected.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub corrected: Option<usize>,
 }
 
 /// Every segment of the archive, in file order, from the frames (checked as by a decode,
@@ -68,6 +74,8 @@ pub fn segment_list(archive: &Archive) -> Result<Vec<SegmentInfo>, crate::error:
                 order: fourier.then_some(s.order),
                 cycles: (s.cycles > 0).then_some(s.cycles),
                 row,
+                peak: s.guard.as_ref().map(|g| g.peak),
+                corrected: s.guard.as_ref().map(|g| g.at.len()),
             });
             offset += s.len;
         }
@@ -369,6 +377,7 @@ fn decode_selected(
             offset += seg.values.len();
             if series.times.len() > begin {
                 series.segments.push((row, begin..series.times.len()));
+                series.peaks.push(seg.peak);
             }
         }
     }
@@ -389,6 +398,7 @@ fn decode_selected(
                 .iter()
                 .map(|(r, s)| (*r, s.start + base..s.end + base)),
         );
+        a.peaks.append(&mut b.peaks);
         true
     });
     Ok(Salvaged { series: out, holes })

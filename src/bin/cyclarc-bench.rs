@@ -511,6 +511,25 @@ struct ThreadRow {
     archives_identical: bool,
 }
 
+/// What the peak guard costs: the same source at the default budget, with peak limits at a
+/// few multiples of the budget (in channel units, on the signal's RMS).
+#[derive(Debug, Clone, Serialize)]
+struct GuardRow {
+    dataset: &'static str,
+    samples: usize,
+    /// The peak limit over the budget's RMS error (`budget_rel · signal RMS`).
+    peak_over_budget: f64,
+    peak_max: f64,
+    unguarded_bytes: u64,
+    archive_bytes: u64,
+    corrected_samples: usize,
+    /// Largest |error| of the unguarded archive's segments, as `verify` measures it.
+    unguarded_max_abs: f64,
+}
+
+/// Peak limits of the guard table, as multiples of the default budget's RMS error.
+const GUARD_MULTIPLES: [f64; 3] = [6.0, 4.0, 3.0];
+
 #[derive(Debug, Clone, Serialize)]
 struct Target {
     what: String,
@@ -535,6 +554,7 @@ struct Report {
     sizes: Vec<SizeRow>,
     memory: Vec<MemoryRow>,
     threads: Vec<ThreadRow>,
+    guards: Vec<GuardRow>,
     targets: Vec<Target>,
     total_s: f64,
     /// 1-minute load average at the start and at the end of the run.
@@ -734,6 +754,63 @@ impl Bench {
         })
     }
 
+    /// Bytes of the peak guard at [`GUARD_MULTIPLES`] of the default budget.
+    fn guards(&self, input: &Input, src: &Path) -> Result<Vec<GuardRow>> {
+        let ds = input.ds;
+        let n = input.samples();
+        let control = JobControl { progress: false };
+        let arc = self
+            .dir
+            .join(format!("{}-{n}.guard.cyclarc.parquet", ds.name()));
+        let base = settings(BudgetKind::Rel(DEFAULT_REL))?;
+        let unguarded = encode_file(src, &arc, &base, &control)?;
+        let fft = RealFft::shared();
+        let check = cyclarc::jobs::verify(&arc, src, fft)?;
+        let unguarded_max_abs = check
+            .channels
+            .iter()
+            .map(|c| c.max_abs_error)
+            .fold(0.0, f64::max);
+        let budget_error = DEFAULT_REL * signal_rms(input);
+        let mut rows = Vec::new();
+        for m in GUARD_MULTIPLES {
+            let peak_max = m * budget_error;
+            let s = EncodeOptions {
+                budget_rel: Some(DEFAULT_REL),
+                peak_max: Some(peak_max),
+                ..Default::default()
+            }
+            .resolve()?;
+            let summary = encode_file(src, &arc, &s, &control)?;
+            let check = cyclarc::jobs::verify(&arc, src, fft)?;
+            if !check.passed() {
+                bail!(
+                    "{}: guarded archive fails verify: {:?}",
+                    arc.display(),
+                    check.findings
+                );
+            }
+            let a = Archive::open(&arc, DigestPolicy::Report)?;
+            let corrected = cyclarc::archive::segment_list(&a)?
+                .iter()
+                .filter_map(|g| g.corrected)
+                .sum();
+            rows.push(GuardRow {
+                dataset: ds.name(),
+                samples: n,
+                peak_over_budget: m,
+                peak_max,
+                unguarded_bytes: unguarded.archive_bytes,
+                archive_bytes: summary.archive_bytes,
+                corrected_samples: corrected,
+                unguarded_max_abs,
+            });
+        }
+        let _ = std::fs::remove_file(digest_path(&arc));
+        let _ = std::fs::remove_file(&arc);
+        Ok(rows)
+    }
+
     /// Archive size against the alternatives, for every budget.
     fn sizes(&self, input: &Input, src: &Path) -> Result<Vec<SizeRow>> {
         let ds = input.ds;
@@ -796,6 +873,7 @@ impl Bench {
                     value_type: ValueType::F32,
                     sample_rate: Some(fs),
                     budget: s.codec.budget,
+                    peak_max: s.codec.peak_max,
                     params: &s.codec,
                     fft,
                 };
@@ -1014,6 +1092,40 @@ fn render(r: &Report) -> String {
             t.all_threads_cpu_s,
             t.speedup,
             if t.archives_identical { "yes" } else { "NO" }
+        );
+    }
+    let _ = writeln!(
+        o,
+        "\nPEAK GUARD at budget {} % of segment RMS: limit = multiple × budget_rel × signal RMS \
+         (verify passed on every guarded archive)",
+        r.default_budget_rel * 100.0
+    );
+    let _ = writeln!(
+        o,
+        "{:<14} {:>8} {:>8} {:>11} {:>13} {:>11} {:>11} {:>8} {:>10}",
+        "dataset",
+        "samples",
+        "× budget",
+        "peak max",
+        "unguarded max",
+        "unguarded B",
+        "guarded B",
+        "cost",
+        "corrected"
+    );
+    for g in &r.guards {
+        let _ = writeln!(
+            o,
+            "{:<14} {:>8} {:>8.1} {:>11.4e} {:>13.4e} {:>11} {:>11} {:>7.1}% {:>10}",
+            g.dataset,
+            si(g.samples as f64),
+            g.peak_over_budget,
+            g.peak_max,
+            g.unguarded_max_abs,
+            g.unguarded_bytes,
+            g.archive_bytes,
+            100.0 * (g.archive_bytes as f64 / g.unguarded_bytes as f64 - 1.0),
+            g.corrected_samples
         );
     }
     let _ = writeln!(o, "\nTARGETS");
@@ -1366,6 +1478,7 @@ fn run(_cli: &Cli, plan: &Plan, bench: &Bench) -> Result<Report> {
     let mut sizes = Vec::new();
     let mut memory = Vec::new();
     let mut threads = Vec::new();
+    let mut guards = Vec::new();
     let all_threads = rayon::current_num_threads();
     let largest = plan.speed_sizes.iter().copied().max().unwrap_or(0);
     let mut wanted: Vec<usize> = plan.speed_sizes.clone();
@@ -1389,6 +1502,10 @@ fn run(_cli: &Cli, plan: &Plan, bench: &Bench) -> Result<Report> {
             if actual(ds, plan.sweep_size) == n {
                 bench.log(&format!("{} {}: budget sweep", ds.name(), si(n as f64)));
                 sizes.extend(bench.sizes(&input, &src)?);
+                if matches!(ds, Dataset::MotorCurrent | Dataset::Vibration) {
+                    bench.log(&format!("{} {}: peak guard", ds.name(), si(n as f64)));
+                    guards.extend(bench.guards(&input, &src)?);
+                }
             }
             if actual(ds, plan.thread_size) == n {
                 bench.log(&format!("{} {}: threads", ds.name(), si(n as f64)));
@@ -1483,6 +1600,7 @@ fn run(_cli: &Cli, plan: &Plan, bench: &Bench) -> Result<Report> {
         sizes,
         memory,
         threads,
+        guards,
         targets: Vec::new(),
         total_s: 0.0,
         load_average: (load0, load_average()),

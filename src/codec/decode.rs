@@ -109,6 +109,8 @@ pub struct DecodedSegment {
     pub specials: Vec<Special>,
     /// Reconstructed coefficients (Fourier only), bins 0 … L−1.
     pub coeffs: Vec<C64>,
+    /// The peak error the segment claims ([`crate::codec::guard`]), if guarded.
+    pub peak: Option<f32>,
 }
 
 impl DecodedSegment {
@@ -170,6 +172,9 @@ pub fn rebuild_block(
             ideal: seg.ideal_len as f64,
         });
         let mut values = values;
+        if let Some(g) = &seg.guard {
+            crate::codec::guard::apply(&mut values, g, block.value_type);
+        }
         for sp in &seg.specials {
             if let Some(v) = values.get_mut(sp.index as usize) {
                 *v = special_value(sp.kind, block.value_type);
@@ -179,6 +184,7 @@ pub fn rebuild_block(
             values,
             specials: seg.specials.clone(),
             coeffs,
+            peak: seg.guard.as_ref().map(|g| g.peak),
         });
     }
     Ok(out)

@@ -8,8 +8,9 @@
 use rayon::prelude::*;
 
 use crate::codec::decode::Prev;
-use crate::codec::fit::{fit_segment, refine_ideal, FitPlan, SegmentInput};
+use crate::codec::fit::{fit_lossless, fit_segment, refine_ideal, FitPlan, Fitted, SegmentInput};
 use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Special};
+use crate::codec::guard;
 use crate::codec::params::{Budget, CodecParams};
 use crate::codec::quant::error_to_f32;
 use crate::codec::segment::{
@@ -135,6 +136,8 @@ pub struct RunParams<'a> {
     pub sample_rate: Option<f64>,
     /// Budget rule.
     pub budget: Budget,
+    /// Peak limit ([`crate::codec::guard`]), channel units.
+    pub peak_max: Option<f64>,
     /// Codec parameters.
     pub params: &'a CodecParams,
     /// Transform.
@@ -155,6 +158,7 @@ impl<'a> RunParams<'a> {
             value_type,
             sample_rate,
             budget: params.budget_for(channel),
+            peak_max: params.peak_for(channel),
             params,
             fft: crate::signal::RealFft::shared(),
         }
@@ -245,6 +249,66 @@ pub fn compact(v: f64) -> f32 {
     }
 }
 
+/// Targets tried under a peak limit X besides the budget, as fractions of X: a tighter fit
+/// needs fewer corrections, and the cheaper of the candidates (by the fit's estimated bits
+/// plus the corrections') is kept.
+const GUARD_TARGETS: [f64; 2] = [0.5, 0.25];
+
+/// Corrected samples (per sample of the segment) below which the tighter targets of
+/// [`GUARD_TARGETS`] are not tried: a few corrections cost less than any refit saves.
+const GUARD_REFIT_SHARE: f64 = 0.01;
+
+/// Fit a segment under a peak limit: the budget's fit with corrections, or a fit at a
+/// tighter target with fewer, whichever is estimated smaller; lossless where no correction
+/// can meet the limit.
+fn fit_guarded(
+    input: SegmentInput<'_>,
+    prev: Option<&Prev>,
+    fft: &dyn crate::signal::Transform,
+    limit: f64,
+) -> (Fitted, Option<guard::Guard>) {
+    let guarded = |fitted: Fitted| -> (f64, Fitted, Option<guard::Guard>) {
+        if fitted.plan.basis == Basis::Lossless {
+            return (fitted.plan.cost_bits, fitted, None);
+        }
+        let synthesized = matches!(fitted.plan.basis, Basis::Fourier | Basis::Trend);
+        let margin = guard::margin(&fitted.output, input.value_type, synthesized);
+        match guard::guard_segment(
+            input.values,
+            &fitted.output,
+            input.value_type,
+            limit,
+            margin,
+        ) {
+            Some(g) => (fitted.plan.cost_bits + g.cost_bits(), fitted, Some(g)),
+            None => {
+                let f = fit_lossless(input, fitted.spectrum);
+                (f.plan.cost_bits, f, None)
+            }
+        }
+    };
+    let mut best = guarded(fit_segment(input, prev, fft));
+    let corrected = best.2.as_ref().map_or(0, |g| g.at.len());
+    if (corrected as f64) < GUARD_REFIT_SHARE * input.values.len() as f64 {
+        return (best.1, best.2);
+    }
+    for share in GUARD_TARGETS {
+        let target = crate::codec::quant::budget_to_f32(share * limit);
+        if !(target > 0.0 && target < input.budget_rms) {
+            continue;
+        }
+        let tighter = SegmentInput {
+            budget_rms: target,
+            ..input
+        };
+        let trial = guarded(fit_segment(tighter, prev, fft));
+        if trial.0 < best.0 {
+            best = trial;
+        }
+    }
+    (best.1, best.2)
+}
+
 pub(crate) fn encode_block_of(
     run: &Run,
     segs: &[PlannedSegment],
@@ -289,15 +353,15 @@ pub(crate) fn encode_block_of(
                 }
             }
         }
-        let fitted = fit_segment(
-            SegmentInput {
-                values: x,
-                value_type: p.value_type,
-                budget_rms: budget,
-            },
-            prev.as_ref(),
-            p.fft,
-        );
+        let input = SegmentInput {
+            values: x,
+            value_type: p.value_type,
+            budget_rms: budget,
+        };
+        let (fitted, guard) = match p.peak_max {
+            None => (fit_segment(input, prev.as_ref(), p.fft), None),
+            Some(limit) => fit_guarded(input, prev.as_ref(), p.fft, limit),
+        };
         prev = matches!(fitted.plan.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
             coeffs: fitted.coeffs.clone(),
             n: s.len,
@@ -350,6 +414,7 @@ pub(crate) fn encode_block_of(
             specials: seg_specials,
             trend: fitted.plan.trend,
             warp: fitted.plan.warp,
+            guard,
         });
         fits.push(fitted.plan);
     }

@@ -76,9 +76,11 @@ pub enum Family {
     Samples = 3,
     /// Integer lossless values as differences.
     Integer = 4,
+    /// Peak-guard corrections ([`crate::codec::guard`]).
+    Correction = 5,
 }
 
-const FAMILIES: usize = 5;
+const FAMILIES: usize = 6;
 
 /// What went wrong decoding a code stream.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, thiserror::Error)]

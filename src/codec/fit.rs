@@ -228,7 +228,7 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
     } else {
         Vec::new()
     };
-    let lossless = fit_lossless(values, &filled, value_type, budget_rms, spectrum.clone());
+    let lossless = lossless_fit(values, &filled, value_type, budget_rms, spectrum.clone());
     if !(budget_rms > 0.0) || n_finite == 0 || huge {
         return lossless;
     }
@@ -521,7 +521,21 @@ fn fit_trend(
 }
 
 /// The lossless representation (always meets any budget).
-fn fit_lossless(
+/// The lossless fit of a segment (what the peak guard falls back to when no correction can
+/// meet its limit); `spectrum` is kept for the derived columns.
+pub fn fit_lossless(input: SegmentInput<'_>, spectrum: Vec<C64>) -> Fitted {
+    let mut filled = input.values.to_vec();
+    fill_non_finite(&mut filled);
+    lossless_fit(
+        input.values,
+        &filled,
+        input.value_type,
+        input.budget_rms,
+        spectrum,
+    )
+}
+
+fn lossless_fit(
     values: &[f64],
     filled: &[f64],
     value_type: ValueType,

@@ -17,6 +17,7 @@
 use integer_encoding::VarInt;
 
 use crate::codec::entropy::{CodeWriter, Family};
+pub use crate::codec::guard::Guard;
 use crate::codec::quant::code_count;
 use crate::model::{Basis, Trend, ValueType};
 pub use crate::model::{Special, SpecialKind};
@@ -26,6 +27,14 @@ pub const BLOCK_FORMAT: u8 = 2;
 
 /// The first block layout (integer codes as LEB128 varints), still read.
 pub const BLOCK_FORMAT_VARINT: u8 = 1;
+
+/// Layout 2 with peak-guard corrections ([`crate::codec::guard`]): written only for blocks
+/// that hold a guarded segment, so that a build which does not know the guard refuses the
+/// block by its layout number instead of misreading it.
+pub const BLOCK_FORMAT_GUARDED: u8 = 3;
+
+/// Segment tag bit: the segment carries a peak guard (layout 3 only).
+pub(crate) const TAG_GUARD: u8 = 0x40;
 
 /// Magic bytes at the start of a decompressed block.
 pub(crate) const MAGIC: &[u8; 2] = b"CB";
@@ -110,6 +119,8 @@ pub struct SegmentRecord {
     pub trend: Option<Trend>,
     /// The warp of a Fourier segment coded in angle ([`crate::codec::warp`]).
     pub warp: Option<f32>,
+    /// The peak guard's corrections and claimed peak error ([`crate::codec::guard`]).
+    pub guard: Option<Guard>,
 }
 
 impl SegmentRecord {
@@ -198,6 +209,11 @@ impl Block {
     pub fn samples(&self) -> usize {
         self.segments.iter().map(|s| s.len).sum()
     }
+
+    /// Whether a segment carries a peak guard.
+    pub fn guarded(&self) -> bool {
+        self.segments.iter().any(|s| s.guard.is_some())
+    }
 }
 
 fn vt_tag(v: ValueType) -> u8 {
@@ -225,9 +241,17 @@ fn put<V: VarInt>(out: &mut Vec<u8>, v: V) {
     out.extend_from_slice(&buf[..n]);
 }
 
-/// Serialize a block (before compression) in this build's layout.
+/// Serialize a block (before compression) in this build's layout: [`BLOCK_FORMAT`], or
+/// [`BLOCK_FORMAT_GUARDED`] when a segment carries a peak guard.
 pub fn serialize_block(b: &Block) -> Vec<u8> {
-    serialize_block_as(b, BLOCK_FORMAT)
+    serialize_block_as(
+        b,
+        if b.guarded() {
+            BLOCK_FORMAT_GUARDED
+        } else {
+            BLOCK_FORMAT
+        },
+    )
 }
 
 /// Serialize a block in layout `format` ([`BLOCK_FORMAT`] or [`BLOCK_FORMAT_VARINT`]).
@@ -250,7 +274,8 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
         segs.push(
             s.basis.tag()
                 | if s.predicted { 0x10 } else { 0 }
-                | if s.warp.is_some() { 0x20 } else { 0 },
+                | if s.warp.is_some() { 0x20 } else { 0 }
+                | if s.guard.is_some() { TAG_GUARD } else { 0 },
         );
         put(&mut segs, s.len as u64);
         put(&mut segs, s.cycles as u64);
@@ -275,6 +300,16 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
             }
             Basis::Samples => segs.extend_from_slice(&s.step.to_le_bytes()),
             Basis::Lossless => {}
+        }
+        if let Some(g) = &s.guard {
+            segs.extend_from_slice(&g.peak.to_le_bytes());
+            segs.extend_from_slice(&g.step.to_le_bytes());
+            put(&mut segs, g.at.len() as u64);
+            let mut last = 0u32;
+            for &i in &g.at {
+                put(&mut segs, (i - last) as u64);
+                last = i;
+            }
         }
         put(&mut specials, s.specials.len() as u64);
         let mut last = 0u32;
@@ -303,6 +338,9 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                     let end = (at + n).min(s.codes.len());
                     coded.segment(family, &s.codes[at..end]);
                     at = end;
+                }
+                if let Some(g) = &s.guard {
+                    coded.segment(Family::Correction, &g.codes);
                 }
             }
         }
@@ -395,7 +433,7 @@ pub const VARINT_TRIAL_BYTES: usize = 4096;
 /// Encode a block to a compressed frame.
 pub fn encode_block(b: &Block, level: i32) -> std::io::Result<Vec<u8>> {
     let frame = compress(&serialize_block(b), level)?;
-    if frame.len() >= VARINT_TRIAL_BYTES {
+    if frame.len() >= VARINT_TRIAL_BYTES || b.guarded() {
         return Ok(frame);
     }
     let varint = compress(&serialize_block_as(b, BLOCK_FORMAT_VARINT), level)?;
@@ -436,6 +474,7 @@ mod tests {
                     }],
                     trend: None,
                     warp: None,
+                    guard: None,
                 },
                 SegmentRecord {
                     len: 8,
@@ -450,6 +489,7 @@ mod tests {
                     specials: vec![],
                     trend: None,
                     warp: Some(-0.003),
+                    guard: None,
                 },
                 SegmentRecord {
                     len: 6,
@@ -467,6 +507,7 @@ mod tests {
                         step: 0.125,
                     }),
                     warp: None,
+                    guard: None,
                 },
             ],
             times: BlockTimes::from_times(&[
@@ -486,11 +527,34 @@ mod tests {
         }
     }
 
+    fn guarded_block() -> Block {
+        let mut b = sample_block();
+        b.segments[2].guard = Some(Guard {
+            peak: 0.25,
+            step: 0.5,
+            at: vec![0, 4],
+            codes: vec![-3, 9],
+        });
+        b
+    }
+
+    #[test]
+    fn a_guarded_block_round_trips_in_its_own_layout() {
+        let b = guarded_block();
+        let bytes = serialize_block(&b);
+        // The header's length (one byte here), the magic, then the layout number.
+        assert_eq!(bytes[3], BLOCK_FORMAT_GUARDED);
+        assert_eq!(decode_block(&encode_block(&b, 3).unwrap()).unwrap(), b);
+        assert_eq!(serialize_block(&sample_block())[3], BLOCK_FORMAT);
+    }
+
     #[test]
     fn every_truncation_of_a_block_is_an_error_not_a_panic() {
-        let bytes = serialize_block(&sample_block());
-        for cut in 0..bytes.len() {
-            assert!(parse_block(&bytes[..cut]).is_err());
+        for b in [sample_block(), guarded_block()] {
+            let bytes = serialize_block(&b);
+            for cut in 0..bytes.len() {
+                assert!(parse_block(&bytes[..cut]).is_err());
+            }
         }
     }
 

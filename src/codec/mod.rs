@@ -10,6 +10,7 @@ pub mod entropy;
 pub mod estimate;
 pub mod fit;
 pub mod frame;
+pub mod guard;
 pub mod params;
 pub mod parse;
 pub mod quant;

@@ -79,6 +79,10 @@ pub struct CodecParams {
     pub block_segments: usize,
     /// Most samples per block.
     pub block_samples: usize,
+    /// Default peak limit ([`crate::codec::guard`]; channel units), or none.
+    pub peak_max: Option<f64>,
+    /// Per-channel peak limits (pattern, limit), first match wins.
+    pub peak_rules: Vec<(String, f64)>,
 }
 
 impl CodecParams {
@@ -88,6 +92,14 @@ impl CodecParams {
             .iter()
             .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
             .map_or(self.budget, |(_, b)| *b)
+    }
+
+    /// The peak limit for a channel: the first matching rule, else the default.
+    pub fn peak_for(&self, channel: &str) -> Option<f64> {
+        self.peak_rules
+            .iter()
+            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
+            .map_or(self.peak_max, |(_, x)| Some(*x))
     }
 
     /// Segmentation settings for a sample rate.

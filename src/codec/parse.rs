@@ -4,10 +4,10 @@
 
 use integer_encoding::VarInt;
 
-use crate::codec::entropy::CodeReader;
+use crate::codec::entropy::{CodeReader, Family};
 use crate::codec::frame::{
-    code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, SegmentRecord,
-    BLOCK_FORMAT, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
+    code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, Guard, SegmentRecord,
+    BLOCK_FORMAT, BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES, TAG_GUARD,
 };
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
@@ -148,7 +148,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         return Err(FrameError::BadMagic);
     }
     let fmt = h.byte()?;
-    if fmt != BLOCK_FORMAT && fmt != BLOCK_FORMAT_VARINT {
+    if ![BLOCK_FORMAT, BLOCK_FORMAT_VARINT, BLOCK_FORMAT_GUARDED].contains(&fmt) {
         return Err(FrameError::UnsupportedFormat(fmt));
     }
     let value_type = vt_from_tag(h.byte()?).ok_or_else(|| h.err("unknown value type"))?;
@@ -182,6 +182,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
         let predicted = tag & 0x10 != 0;
         let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
+        if tag & 0x80 != 0 || (tag & TAG_GUARD != 0 && fmt != BLOCK_FORMAT_GUARDED) {
+            return Err(sc.err("unknown segment flags"));
+        }
         let cycles = sc.count(u32::MAX as usize)? as u32;
         let ideal_len = sc.f32()?;
         let warp = if tag & 0x20 != 0 {
@@ -214,6 +217,38 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             }
             Basis::Samples => (0, sc.f32()?),
             Basis::Lossless => (0, 0.0),
+        };
+        let guard = if tag & TAG_GUARD != 0 {
+            if basis == Basis::Lossless {
+                return Err(sc.err("peak guard on a lossless segment"));
+            }
+            let peak = sc.f32()?;
+            let step = sc.f32()?;
+            if !(peak >= 0.0 && peak.is_finite() && step > 0.0 && step.is_finite()) {
+                return Err(sc.err("peak guard's peak or step out of range"));
+            }
+            let n = sc.count(len)?;
+            let mut at = Vec::with_capacity(n);
+            let mut idx = 0u64;
+            for i in 0..n {
+                let d: u64 = sc.var()?;
+                if i > 0 && d == 0 {
+                    return Err(sc.err("corrected samples not increasing"));
+                }
+                idx = idx.checked_add(d).ok_or_else(|| sc.err("index overflow"))?;
+                if idx >= len as u64 {
+                    return Err(sc.err("corrected sample beyond segment"));
+                }
+                at.push(idx as u32);
+            }
+            Some(Guard {
+                peak,
+                step,
+                at,
+                codes: Vec::new(),
+            })
+        } else {
+            None
         };
         let nsp = sp.count(len)?;
         let mut specials = Vec::with_capacity(nsp);
@@ -252,6 +287,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             specials,
             trend,
             warp,
+            guard,
         };
         let layout = code_layout(&rec, value_type);
         let n: usize = layout.into_iter().flatten().map(|p| p.1).sum();
@@ -260,6 +296,13 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             return Err(FrameError::TooLarge);
         }
         rec.codes = codes.read(n, layout)?;
+        if let Some(g) = rec.guard.as_mut() {
+            codes_total += g.at.len();
+            if codes_total > MAX_BLOCK_CODES {
+                return Err(FrameError::TooLarge);
+            }
+            g.codes = codes.read(g.at.len(), [Some((Family::Correction, g.at.len())), None])?;
+        }
         let nraw = rec.expected_raw(value_type);
         if raw_taken + nraw > raw_total {
             return Err(FrameError::Inconsistent("raw section too short"));

@@ -59,6 +59,7 @@ impl ChannelEncoder {
             asm: ChannelAssembler::new(source, &info.name, settings.source.sample_rate_hz),
             meta: ChannelMeta {
                 budget: Some(settings.codec.budget_for(&info.name)),
+                peak_max: settings.codec.peak_for(&info.name),
                 ..ChannelMeta::new(&info, None, 0, 0, false)
             },
             info,

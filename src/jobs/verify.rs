@@ -2,7 +2,9 @@
 //! recompute each segment's RMS error against the source: it must be within the segment's
 //! budget, and agree with the recorded error. Every source row must come back with its exact
 //! timestamp, and every NaN, ±Inf and null exactly where it was. The largest absolute error is
-//! reported as information only: an L2 bound does not bound peaks.
+//! reported; it is checked only where the archive claims a peak guard ([`crate::codec::guard`]):
+//! then no sample may exceed the channel's limit, nor the peak its segment records. Without
+//! a guard it is information only: an L2 bound does not bound peaks.
 //!
 //! Does not: encode anything.
 
@@ -47,8 +49,10 @@ pub struct ChannelCheck {
     pub worst_error_over_budget: f64,
     /// Largest RMS error of a segment.
     pub worst_error_rms: f64,
-    /// Largest absolute error of any sample (information: not bounded by the budget).
+    /// Largest absolute error of any sample (bounded only under a peak guard).
     pub max_abs_error: f64,
+    /// The channel's peak limit (peak guard), which every sample was checked against.
+    pub peak_max: Option<f64>,
 }
 
 /// The outcome of `verify`.
@@ -238,6 +242,7 @@ fn check_channel(
         worst_error_over_budget: 0.0,
         worst_error_rms: 0.0,
         max_abs_error: 0.0,
+        peak_max: cm.peak_max,
     };
     if src.times != dec.times {
         let at = src
@@ -264,7 +269,7 @@ fn check_channel(
             "null, NaN or ±Inf values do not come back where they were".into(),
         ));
     }
-    for (row, range) in &dec.segments {
+    for (k, (row, range)) in dec.segments.iter().enumerate() {
         let r = &archive.rows[*row];
         let error_at = |j: usize| {
             let i = range.start + j;
@@ -289,6 +294,13 @@ fn check_channel(
         };
         check.worst_error_rms = check.worst_error_rms.max(err);
         check.max_abs_error = check.max_abs_error.max(max_abs);
+        check_peak(
+            cm,
+            dec.peaks.get(k).copied().flatten(),
+            max_abs,
+            r.start_ns,
+            findings,
+        );
         if budget > 0.0 {
             check.worst_error_over_budget = check.worst_error_over_budget.max(err / budget);
         }
@@ -314,6 +326,54 @@ fn check_channel(
         }
     }
     check
+}
+
+/// The peak guard's promises for one segment: no sample beyond the channel's limit, and none
+/// beyond the peak its segment records (which must itself be within the limit).
+fn check_peak(
+    cm: &ChannelMeta,
+    claimed: Option<f32>,
+    max_abs: f64,
+    start_ns: i64,
+    findings: &mut Vec<Finding>,
+) {
+    let name = Some(cm.name.as_str());
+    if let Some(limit) = cm.peak_max {
+        if !(max_abs <= limit) {
+            findings.push(finding(
+                name,
+                Some(start_ns),
+                format!("largest absolute error {max_abs:.6e} exceeds the peak limit {limit:.6e}"),
+            ));
+        }
+        if let Some(c) = claimed {
+            if !(c as f64 <= limit) {
+                findings.push(finding(
+                    name,
+                    Some(start_ns),
+                    format!("the segment claims a peak error {c:.6e} above the limit {limit:.6e}"),
+                ));
+            }
+        }
+    } else if claimed.is_some() {
+        findings.push(finding(
+            name,
+            Some(start_ns),
+            "the segment carries a peak guard the channel's metadata does not record".into(),
+        ));
+    }
+    if let Some(c) = claimed {
+        if !(max_abs <= c as f64 * (1.0 + RECORDED_ERROR_SLACK)) {
+            findings.push(finding(
+                name,
+                Some(start_ns),
+                format!(
+                    "largest absolute error {max_abs:.6e} is above the peak its segment records \
+                     ({c:.6e})"
+                ),
+            ));
+        }
+    }
 }
 
 fn same_specials(

@@ -675,3 +675,88 @@ fn row_group_size_and_row_order_do_not_change_archives() {
     }
     assert_same_archive(&archives[0], &archives[1]);
 }
+
+// ── encode --peak-max, pipeline `peaks` ──
+
+/// A 48 Hz wave with six single-sample spikes at irregular places (invented test signal).
+fn spiky_source(path: &Path) -> Vec<f64> {
+    let mut x = wave(N, FS, 48.0, 1.0, 0.01, 900);
+    for (k, i) in [211, 1380, 2004, 3333, 4721, 5902].into_iter().enumerate() {
+        x[i] += if k % 2 == 0 { 2.5 } else { -1.5 };
+    }
+    write_wide(
+        path,
+        &[Chan::new("v", VType::F64, grid(N, FS), &x)],
+        Spec::new(TimeKind::Ts(TimeUnit::Nanosecond, None)),
+        "time",
+    );
+    x
+}
+
+/// Largest |decoded − source| of channel `v`, from the decoded file (the L∞ norm of the
+/// error, computed here).
+fn decoded_peak(s: &Lab, arch: &Path, x: &[f64]) -> f64 {
+    let dec = s.path("peak-d.parquet");
+    let _ = std::fs::remove_file(&dec);
+    s.run(&["decode", ps(arch), "--out", ps(&dec)]).expect(0);
+    let got = &Shape::wide().series(&read_table(&dec))["v"];
+    assert_eq!(got.len(), x.len());
+    (0..x.len())
+        .map(|i| (got.value(i).expect("no nulls") - x[i]).abs())
+        .fold(0.0, f64::max)
+}
+
+#[test]
+fn peak_max_holds_every_sample_and_verify_and_inspect_report_it() {
+    let s = Lab::new();
+    let src = s.path("src.parquet");
+    let x = spiky_source(&src);
+    let (plain, guarded) = (s.path("p.parquet"), s.path("g.parquet"));
+    s.encode(&src, &plain, &["--budget-rel", "0.05"]).expect(0);
+    // The user's limit, against the 5 % budget that alone smears the spikes.
+    assert!(decoded_peak(&s, &plain, &x) > 0.1);
+    s.encode(
+        &src,
+        &guarded,
+        &["--budget-rel", "0.05", "--peak-max", "0.05"],
+    )
+    .expect(0);
+    assert!(decoded_peak(&s, &guarded, &x) <= 0.05);
+    s.run(&["verify", ps(&guarded), "--source", ps(&src)])
+        .expect(0)
+        .prints(&["≤ 5.0000e-2"]);
+    s.run(&["inspect", ps(&guarded)]).expect(0).prints(&[
+        "peak guard on v: every sample within 0.05",
+        "samples corrected",
+    ]);
+    let j = s.run(&["inspect", ps(&guarded), "--json"]).json();
+    assert_eq!(j["channels"][0]["peak_max"], 0.05);
+    assert!(j["channels"][0]["corrected_samples"].as_u64().is_some());
+    // Refused limits name the option.
+    s.encode(&src, &s.path("bad.parquet"), &["--peak-max", "0"])
+        .expect(2)
+        .says(&["peak-max"]);
+}
+
+#[test]
+fn a_pipeline_peak_rule_applies_to_its_channels_only() {
+    let s = Lab::new();
+    std::fs::create_dir_all(s.path("data")).expect("mkdir");
+    let src = s.path("data/spiky.parquet");
+    let x = spiky_source(&src);
+    let job = s.path("job.toml");
+    std::fs::write(
+        &job,
+        "output = \"out\"\nverify = true\n[encode]\nbudget_rel = 0.05\n\
+         [[encode.peaks]]\nchannels = \"v\"\nmax = 0.1\n\
+         [[encode.peaks]]\nchannels = \"*\"\nmax = 0.001\n\n\
+         [[source]]\npaths = [\"data/*.parquet\"]\n",
+    )
+    .expect("job");
+    s.run(&["run", ps(&job)]).expect(0);
+    let arch = s.path("out/spiky.cyclarc.parquet");
+    assert!(decoded_peak(&s, &arch, &x) <= 0.1);
+    s.run(&["inspect", ps(&arch)])
+        .expect(0)
+        .prints(&["peak guard on v: every sample within 0.1 "]);
+}

@@ -10,6 +10,7 @@ mod drift;
 mod ecg;
 mod fft_reference;
 mod fundamental;
+mod guard;
 mod order_inflation;
 mod properties;
 mod ratio;

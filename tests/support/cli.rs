@@ -65,6 +65,18 @@ impl Ran {
         self
     }
 
+    /// Assert that stdout contains each of these pieces.
+    pub fn prints(&self, pieces: &[&str]) -> &Self {
+        for p in pieces {
+            assert!(
+                self.stdout.contains(p),
+                "stdout does not contain `{p}`\n{}",
+                self.context()
+            );
+        }
+        self
+    }
+
     /// Assert a condition about this run, printing the run on failure.
     pub fn ensure(&self, cond: bool, what: impl std::fmt::Display) -> &Self {
         assert!(cond, "{what}\n{}", self.context());
