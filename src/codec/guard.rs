@@ -52,6 +52,10 @@ impl Guard {
     }
 }
 
+/// Relative room left under the limit for the claimed peak's rounding up to f32 (f32 spacing
+/// is 2⁻²³ relative).
+const CLAIM_ROOM: f64 = 1e-6;
+
 /// How many times the correction step is halved when rounding to the output type pushes a
 /// corrected sample past the limit.
 const MAX_HALVINGS: usize = 8;
@@ -89,7 +93,14 @@ pub fn guard_segment(
     limit: f64,
     margin: f64,
 ) -> Option<Guard> {
-    let aim = limit - margin;
+    // A little under the limit, so that the claim, rounded up to f32, still fits under it
+    // (integer errors and margins are whole counts, exact in f32).
+    let room = if value_type.is_integer() {
+        0.0
+    } else {
+        CLAIM_ROOM
+    };
+    let aim = limit * (1.0 - room) - margin;
     if !(aim >= 0.0) || !limit.is_finite() {
         return None;
     }
@@ -98,13 +109,13 @@ pub fn guard_segment(
     let mut step = if value_type.is_integer() {
         (2.0 * aim).floor().max(1.0) as f32
     } else {
-        crate::codec::quant::budget_to_f32(2.0 * aim) as f32
+        short_down(crate::codec::quant::budget_to_f32(2.0 * aim) as f32)
     };
     for _ in 0..=MAX_HALVINGS {
         if !(step > 0.0) {
             return None;
         }
-        if let Some(g) = try_step(source, output, value_type, aim, margin, step) {
+        if let Some(g) = try_step(source, output, value_type, aim, margin, step, limit) {
             return Some(g);
         }
         if value_type.is_integer() && step <= 1.0 {
@@ -119,6 +130,30 @@ pub fn guard_segment(
     None
 }
 
+/// Low mantissa bits cleared from the stored step and peak: 8 significant bits are plenty for
+/// either, and the segments of a channel then repeat the same few bytes, which zstd removes
+/// (measured: full f32 peaks cost the guard some 2 B per segment on clean current).
+const SHORT_MASK: u32 = 0xffff;
+
+/// `v` (positive) rounded down to 8 significant bits.
+fn short_down(v: f32) -> f32 {
+    f32::from_bits(v.to_bits() & !SHORT_MASK)
+}
+
+/// `v` (positive, finite) rounded up to 8 significant bits.
+fn short_up(v: f32) -> f32 {
+    let b = v.to_bits();
+    if b & SHORT_MASK == 0 {
+        return v;
+    }
+    let r = f32::from_bits((b | SHORT_MASK).wrapping_add(1));
+    if r.is_finite() {
+        r
+    } else {
+        v
+    }
+}
+
 fn try_step(
     source: &[f64],
     output: &[f64],
@@ -126,6 +161,7 @@ fn try_step(
     aim: f64,
     margin: f64,
     step: f32,
+    limit: f64,
 ) -> Option<Guard> {
     let (mut at, mut codes) = (Vec::new(), Vec::new());
     let mut worst = 0.0f64;
@@ -153,8 +189,10 @@ fn try_step(
             codes.push(code);
         }
     }
+    let claim = error_to_f32(worst + margin);
+    let short = short_up(claim);
     Some(Guard {
-        peak: error_to_f32(worst + margin),
+        peak: if short as f64 <= limit { short } else { claim },
         step,
         at,
         codes,
