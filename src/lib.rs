@@ -79,6 +79,12 @@
 //! integer channels). Each guarded segment records its largest error, rounded up; `verify`
 //! checks every sample against the limit and that record.
 //!
+//! **Protected bands.** Bins inside a channel's protected bands ([`codec::bands`]; Hz or
+//! orders) are refined with a step of their own so that each bin's peak amplitude
+//! `2|X_k|/N` comes back within 1 % of the source's, or within the channel's floor; the
+//! refinement is added to the decoder's unrounded output before rounding, and `verify`
+//! recomputes every protected amplitude.
+//!
 //! **Coding.** A block's integer codes (quantized bins, trend coefficients, time-domain
 //! samples) form one range-coded stream with adaptive probabilities in contexts
 //! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block

@@ -9,7 +9,7 @@ use clap::{Args, Parser, Subcommand};
 
 use cyclarc::archive::segment_list;
 use cyclarc::jobs::pipeline;
-use cyclarc::options::{EncodeOptions, Layout};
+use cyclarc::options::{BearingSpec, EncodeOptions, Layout, ProtectSpec, RotorBarSpec};
 use cyclarc::signal::RealFft;
 use cyclarc::{decode_file, encode_file, report, Archive, DigestPolicy, Error, JobControl};
 
@@ -30,7 +30,7 @@ struct Cli {
 #[derive(Subcommand)]
 enum Command {
     /// Encode a Parquet source into an archive.
-    Encode(EncodeArgs),
+    Encode(Box<EncodeArgs>),
     /// Decode an archive back to Parquet in the source's layout.
     Decode {
         /// The archive.
@@ -111,6 +111,23 @@ struct EncodeArgs {
     /// (channel units); samples that would are corrected, and `verify` checks it.
     #[arg(long, allow_negative_numbers = true)]
     peak_max: Option<f64>,
+    /// Protected bands in Hz, `CENTRE[:HALF_WIDTH],…`: their bins keep their amplitude
+    /// within 1 % (or --protect-floor) whatever the budget.
+    #[arg(long)]
+    protect_hz: Option<String>,
+    /// Protected bands in orders of the tracked fundamental, `CENTRE[:HALF_WIDTH],…`.
+    #[arg(long)]
+    protect_orders: Option<String>,
+    /// Protect a bearing's defect orders (FTF, BPFO, BPFI, BSF, each ±2 %):
+    /// `ELEMENTS,BALL_DIAMETER,PITCH_DIAMETER[,CONTACT_ANGLE_DEG]`.
+    #[arg(long)]
+    protect_bearing: Option<String>,
+    /// Protect rotor-bar sidebands (1 ± 2s)·f (±0.5 Hz): `LINE_HZ,SLIP`.
+    #[arg(long)]
+    protect_rotor_bars: Option<String>,
+    /// Amplitude floor of protected bins (channel units; default 0).
+    #[arg(long)]
+    protect_floor: Option<f64>,
     /// Fundamental frequency in Hz (used as is, no tracking).
     #[arg(long, conflicts_with = "fundamental")]
     fundamental_hz: Option<f64>,
@@ -147,12 +164,73 @@ struct EncodeArgs {
 }
 
 impl EncodeArgs {
-    fn options(&self) -> EncodeOptions {
-        EncodeOptions {
+    fn protect(&self) -> Result<Option<ProtectSpec>, Error> {
+        let nums = |flag: &str, v: &str, min: usize, max: usize| -> Result<Vec<f64>, Error> {
+            let parts: Vec<f64> = v
+                .split(',')
+                .map(|p| p.trim().parse::<f64>())
+                .collect::<Result<_, _>>()
+                .map_err(|_| Error::InvalidOption {
+                    name: flag.into(),
+                    reason: format!("`{v}` is not a list of numbers"),
+                })?;
+            if !(min..=max).contains(&parts.len()) {
+                return Err(Error::InvalidOption {
+                    name: flag.into(),
+                    reason: format!("`{v}`: expected {min} to {max} numbers"),
+                });
+            }
+            Ok(parts)
+        };
+        let bearing = match &self.protect_bearing {
+            None => None,
+            Some(v) => {
+                let n = nums("protect-bearing", v, 3, 4)?;
+                if !(n[0] >= 1.0 && n[0].fract() == 0.0 && n[0] <= u32::MAX as f64) {
+                    return Err(Error::InvalidOption {
+                        name: "protect-bearing".into(),
+                        reason: format!("`{v}`: the element count must be a whole number ≥ 1"),
+                    });
+                }
+                Some(BearingSpec {
+                    elements: n[0] as u32,
+                    ball_diameter: n[1],
+                    pitch_diameter: n[2],
+                    contact_angle_deg: n.get(3).copied().unwrap_or(0.0),
+                    slip: None,
+                })
+            }
+        };
+        let rotor_bars = match &self.protect_rotor_bars {
+            None => None,
+            Some(v) => {
+                let n = nums("protect-rotor-bars", v, 2, 2)?;
+                Some(RotorBarSpec {
+                    line_hz: n[0],
+                    slip: n[1],
+                    pairs: None,
+                    half_width_hz: None,
+                })
+            }
+        };
+        let spec = ProtectSpec {
+            channels: None,
+            hz: self.protect_hz.clone(),
+            orders: self.protect_orders.clone(),
+            floor: self.protect_floor,
+            bearing,
+            rotor_bars,
+        };
+        Ok((spec != ProtectSpec::default()).then_some(spec))
+    }
+
+    fn options(&self) -> Result<EncodeOptions, Error> {
+        Ok(EncodeOptions {
             budget_rms: self.budget_rms,
             budget_rel: self.budget_rel,
             budget_floor: self.budget_floor,
             peak_max: self.peak_max,
+            protect: self.protect()?,
             fundamental: self
                 .fundamental_hz
                 .map(|f| f.to_string())
@@ -166,7 +244,7 @@ impl EncodeArgs {
             sample_rate_hz: self.sample_rate_hz,
             zstd_level: self.zstd_level,
             ..Default::default()
-        }
+        })
     }
 }
 
@@ -201,7 +279,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
     let control = JobControl { progress: true };
     match cli.command {
         Command::Encode(a) => {
-            let settings = a.options().resolve()?;
+            let settings = a.options()?.resolve()?;
             let s = encode_file(&a.source, &a.out, &settings, &control)?;
             if a.json {
                 print_json(&s);

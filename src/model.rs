@@ -328,4 +328,6 @@ pub struct ChannelSeries {
     pub segments: Vec<(usize, std::ops::Range<usize>)>,
     /// Per entry of `segments`: the peak error its segment claims (peak guard only).
     pub peaks: Vec<Option<f32>>,
+    /// Per entry of `segments`: its protected bins, if any.
+    pub protected: Vec<Option<Vec<u32>>>,
 }

@@ -6,6 +6,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::codec::bands::{rotor_bar_sidebands_hz, Band, BandUnit, BearingGeometry, Protection};
 pub use crate::codec::params::{
     Budget, CodecParams, DEFAULT_BLOCK_SAMPLES, DEFAULT_BLOCK_SEGMENTS, DEFAULT_BUDGET_REL,
     DEFAULT_ZSTD_LEVEL, MAX_BUDGET, MIN_POSITIVE_BUDGET,
@@ -110,6 +111,164 @@ pub struct PeakRule {
     pub max: f64,
 }
 
+/// Bearing geometry for protected bands: its defect frequencies (FTF, BPFO, BPFI, BSF) as
+/// orders of the shaft, each ± `slip` of itself.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct BearingSpec {
+    /// Rolling elements.
+    pub elements: u32,
+    /// Ball (roller) diameter.
+    pub ball_diameter: f64,
+    /// Pitch diameter (same unit).
+    pub pitch_diameter: f64,
+    /// Contact angle in degrees. Default 0.
+    #[serde(default)]
+    pub contact_angle_deg: f64,
+    /// Half-width as a fraction of each defect order. Default 0.02 (bearings slip 1–2 %).
+    pub slip: Option<f64>,
+}
+
+/// Rotor-bar sidebands for protected bands: (1 ± 2ks)·line for k = 1 … `pairs`.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RotorBarSpec {
+    /// Line frequency (Hz).
+    pub line_hz: f64,
+    /// Slip (fraction).
+    pub slip: f64,
+    /// Sideband pairs. Default 1.
+    pub pairs: Option<u32>,
+    /// Half-width of each band (Hz). Default 0.5.
+    pub half_width_hz: Option<f64>,
+}
+
+/// Protected bands, written by the user: lists of `CENTRE` or `CENTRE:HALF_WIDTH`, in Hz or in
+/// orders of the tracked fundamental, plus bands computed from a bearing or a motor.
+#[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
+#[serde(deny_unknown_fields, default)]
+pub struct ProtectSpec {
+    /// Channels the rule applies to (glob; rules only). Default `*`.
+    pub channels: Option<String>,
+    /// Bands in Hz, e.g. `"47:0.5, 53:0.5"`.
+    pub hz: Option<String>,
+    /// Bands in orders, e.g. `"2.5779:0.05"`.
+    pub orders: Option<String>,
+    /// Amplitude floor (channel units): a protected bin's amplitude may always be off by
+    /// this much. Default 0 (1 % of its amplitude only).
+    pub floor: Option<f64>,
+    /// Bearing defect orders.
+    pub bearing: Option<BearingSpec>,
+    /// Rotor-bar sidebands.
+    pub rotor_bars: Option<RotorBarSpec>,
+}
+
+impl ProtectSpec {
+    fn is_empty(&self) -> bool {
+        self.hz.is_none()
+            && self.orders.is_none()
+            && self.bearing.is_none()
+            && self.rotor_bars.is_none()
+    }
+
+    /// Validate into [`Protection`]; `name` prefixes option names in errors.
+    fn resolve(&self, name: &str) -> Result<Protection> {
+        let bad = |what: &str, reason: String| Error::InvalidOption {
+            name: format!("{name}{what}"),
+            reason,
+        };
+        let mut bands = Vec::new();
+        for (what, list, unit) in [
+            ("hz", &self.hz, BandUnit::Hz),
+            ("orders", &self.orders, BandUnit::Order),
+        ] {
+            let Some(list) = list else { continue };
+            for item in list.split(',').map(str::trim).filter(|s| !s.is_empty()) {
+                let (c, w) = item.split_once(':').unwrap_or((item, "0"));
+                let (c, w): (f64, f64) = match (c.trim().parse(), w.trim().parse()) {
+                    (Ok(c), Ok(w)) => (c, w),
+                    _ => {
+                        return Err(bad(
+                            what,
+                            format!("`{item}` is not CENTRE or CENTRE:HALF_WIDTH"),
+                        ))
+                    }
+                };
+                if !(c.is_finite() && c > 0.0 && w.is_finite() && w >= 0.0) {
+                    return Err(bad(
+                        what,
+                        format!("`{item}`: the centre must be > 0 and the half-width ≥ 0"),
+                    ));
+                }
+                bands.push(Band {
+                    unit,
+                    center: c,
+                    half_width: w,
+                });
+            }
+        }
+        if let Some(b) = self.bearing {
+            let g = BearingGeometry {
+                elements: b.elements,
+                ball_diameter: b.ball_diameter,
+                pitch_diameter: b.pitch_diameter,
+                contact_angle_deg: b.contact_angle_deg,
+            };
+            let o = g.defect_orders().ok_or_else(|| {
+                bad(
+                    "bearing",
+                    "needs elements ≥ 1, 0 < ball diameter < pitch diameter and a contact \
+                     angle under 90°"
+                        .into(),
+                )
+            })?;
+            let slip = b.slip.unwrap_or(DEFAULT_BEARING_SLIP);
+            if !(slip.is_finite() && (0.0..1.0).contains(&slip)) {
+                return Err(bad(
+                    "bearing.slip",
+                    format!("must be in [0, 1), got {slip}"),
+                ));
+            }
+            for center in [o.ftf, o.bpfo, o.bpfi, o.bsf] {
+                bands.push(Band {
+                    unit: BandUnit::Order,
+                    center,
+                    half_width: slip * center,
+                });
+            }
+        }
+        if let Some(r) = self.rotor_bars {
+            let w = r.half_width_hz.unwrap_or(DEFAULT_SIDEBAND_HALF_WIDTH_HZ);
+            let line_ok = r.line_hz.is_finite() && r.line_hz > 0.0;
+            let slip_ok = r.slip.is_finite() && (0.0..1.0).contains(&r.slip);
+            if !(line_ok && slip_ok && w.is_finite() && w >= 0.0) {
+                return Err(bad(
+                    "rotor_bars",
+                    "needs line_hz > 0, 0 ≤ slip < 1 and half_width_hz ≥ 0".into(),
+                ));
+            }
+            for f in rotor_bar_sidebands_hz(r.line_hz, r.slip, r.pairs.unwrap_or(1)) {
+                bands.push(Band {
+                    unit: BandUnit::Hz,
+                    center: f,
+                    half_width: w,
+                });
+            }
+        }
+        let floor = self.floor.unwrap_or(0.0);
+        if !(floor.is_finite() && floor >= 0.0) {
+            return Err(bad("floor", format!("must be ≥ 0, got {floor}")));
+        }
+        Ok(Protection { bands, floor })
+    }
+}
+
+/// Default half-width of a bearing's defect-order bands, as a fraction of the order.
+pub const DEFAULT_BEARING_SLIP: f64 = 0.02;
+
+/// Default half-width of rotor-bar sideband bands (Hz).
+pub const DEFAULT_SIDEBAND_HALF_WIDTH_HZ: f64 = 0.5;
+
 /// The job specification (flags and pipeline files fill this same type).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -127,6 +286,10 @@ pub struct EncodeOptions {
     pub peak_max: Option<f64>,
     /// Per-channel peak limits; the first matching rule wins over `peak_max`.
     pub peaks: Vec<PeakRule>,
+    /// Protected bands of every channel. Default: none.
+    pub protect: Option<ProtectSpec>,
+    /// Per-channel protected bands; the first matching rule wins over `protect`.
+    pub protects: Vec<ProtectSpec>,
     /// "auto" (default), "none", or a frequency in Hz.
     pub fundamental: Option<String>,
     /// Whole cycles per segment. Default: fewest spanning 200 ms.
@@ -181,6 +344,10 @@ struct SettingsRecord<'a> {
     peak_max: Option<f64>,
     #[serde(skip_serializing_if = "<[_]>::is_empty")]
     peak_rules: &'a [(String, f64)],
+    #[serde(skip_serializing_if = "Option::is_none")]
+    protection: &'a Option<Protection>,
+    #[serde(skip_serializing_if = "<[_]>::is_empty")]
+    protection_rules: &'a [(String, Protection)],
 }
 
 impl Serialize for Settings {
@@ -202,6 +369,8 @@ impl Serialize for Settings {
             block_samples: c.block_samples,
             peak_max: c.peak_max,
             peak_rules: &c.peak_rules,
+            protection: &c.protection,
+            protection_rules: &c.protection_rules,
         }
         .serialize(s)
     }
@@ -213,13 +382,15 @@ impl EncodeOptions {
         macro_rules! pick {
             ($($f:ident),*) => { EncodeOptions { $($f: over.$f.clone().or_else(|| self.$f.clone()),)*
                 budgets: if over.budgets.is_empty() { self.budgets.clone() } else { over.budgets.clone() },
-                peaks: if over.peaks.is_empty() { self.peaks.clone() } else { over.peaks.clone() } } };
+                peaks: if over.peaks.is_empty() { self.peaks.clone() } else { over.peaks.clone() },
+                protects: if over.protects.is_empty() { self.protects.clone() } else { over.protects.clone() } } };
         }
         let mut o = pick!(
             budget_rms,
             budget_rel,
             budget_floor,
             peak_max,
+            protect,
             fundamental,
             cycles_per_segment,
             layout,
@@ -289,6 +460,19 @@ impl EncodeOptions {
             })?;
             peak_rules.push((r.channels.clone(), peak("peaks.max", r.max)?));
         }
+        let protection = match &self.protect {
+            Some(p) if !p.is_empty() => Some(p.resolve("protect-")?),
+            _ => None,
+        };
+        let mut protection_rules = Vec::new();
+        for r in &self.protects {
+            let pattern = r.channels.clone().unwrap_or_else(|| "*".into());
+            glob::Pattern::new(&pattern).map_err(|e| Error::InvalidOption {
+                name: "protects.channels".into(),
+                reason: format!("`{pattern}`: {e}"),
+            })?;
+            protection_rules.push((pattern, r.resolve("protects.")?));
+        }
         let fundamental = match self.fundamental.as_deref().map(str::trim) {
             None | Some("auto") => FundamentalSetting::Auto,
             Some("none") => FundamentalSetting::None,
@@ -356,6 +540,8 @@ impl EncodeOptions {
                 block_samples: DEFAULT_BLOCK_SAMPLES,
                 peak_max,
                 peak_rules,
+                protection,
+                protection_rules,
             },
         })
     }

@@ -45,6 +45,12 @@ pub struct ChannelInspect {
     /// Samples the peak guard corrected.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub corrected_samples: Option<usize>,
+    /// Protected bands of the channel, if any.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub protected_bands: Option<usize>,
+    /// Protected bins kept, summed over segments.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub protected_bins: Option<usize>,
 }
 
 /// How the archive's bytes split.
@@ -168,6 +174,11 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
             worst_peak,
             corrected_samples: guarded
                 .then(|| segs.iter().filter_map(|s| s.corrected).sum::<usize>()),
+            protected_bands: cm.protection.as_ref().map(|p| p.bands.len()),
+            protected_bins: cm
+                .protection
+                .as_ref()
+                .map(|_| segs.iter().filter_map(|s| s.protected_bins).sum::<usize>()),
         });
     }
     Inspect {
@@ -297,6 +308,16 @@ pub fn inspect_text(i: &Inspect) -> String {
                 c.channel,
                 c.worst_peak.map_or("-".into(), |p| format!("{p:.4e}")),
                 c.corrected_samples.unwrap_or(0)
+            ));
+        }
+    }
+    for c in &i.channels {
+        if let Some(bands) = c.protected_bands {
+            s.push_str(&format!(
+                "protected bands on {}: {bands} band(s), {} bin(s) kept within 1 % of their \
+                 amplitude over the segments\n",
+                c.channel,
+                c.protected_bins.unwrap_or(0)
             ));
         }
     }

@@ -148,6 +148,10 @@ pub struct ChannelMeta {
     /// its source value by more than this (channel units). Absent without a guard.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub peak_max: Option<f64>,
+    /// The channel's protected bands and amplitude floor ([`crate::codec::bands`]).
+    /// Absent without protection.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub protection: Option<crate::codec::bands::Protection>,
 }
 
 impl ChannelMeta {
@@ -174,6 +178,7 @@ impl ChannelMeta {
             blocks: None,
             budget: None,
             peak_max: None,
+            protection: None,
         }
     }
 

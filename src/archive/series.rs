@@ -46,6 +46,9 @@ pub struct SegmentInfo {
     /// Samples the peak guard corrected.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub corrected: Option<usize>,
+    /// Protected bins of the segment.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub protected_bins: Option<usize>,
 }
 
 /// Every segment of the archive, in file order, from the frames (checked as by a decode,
@@ -76,6 +79,7 @@ pub fn segment_list(archive: &Archive) -> Result<Vec<SegmentInfo>, crate::error:
                 row,
                 peak: s.guard.as_ref().map(|g| g.peak),
                 corrected: s.guard.as_ref().map(|g| g.at.len()),
+                protected_bins: s.protect.as_ref().map(|p| p.bins.len()),
             });
             offset += s.len;
         }
@@ -378,6 +382,7 @@ fn decode_selected(
             if series.times.len() > begin {
                 series.segments.push((row, begin..series.times.len()));
                 series.peaks.push(seg.peak);
+                series.protected.push(seg.protected.clone());
             }
         }
     }
@@ -399,6 +404,7 @@ fn decode_selected(
                 .map(|(r, s)| (*r, s.start + base..s.end + base)),
         );
         a.peaks.append(&mut b.peaks);
+        a.protected.append(&mut b.protected);
         true
     });
     Ok(Salvaged { series: out, holes })

@@ -874,6 +874,7 @@ impl Bench {
                     sample_rate: Some(fs),
                     budget: s.codec.budget,
                     peak_max: s.codec.peak_max,
+                    protection: None,
                     params: &s.codec,
                     fft,
                 };

@@ -111,6 +111,8 @@ pub struct DecodedSegment {
     pub coeffs: Vec<C64>,
     /// The peak error the segment claims ([`crate::codec::guard`]), if guarded.
     pub peak: Option<f32>,
+    /// The segment's protected bins ([`crate::codec::bands`]), if any.
+    pub protected: Option<Vec<u32>>,
 }
 
 impl DecodedSegment {
@@ -130,64 +132,107 @@ pub fn rebuild_block(
     let mut prev: Option<Prev> = None;
     let mut out = Vec::with_capacity(block.segments.len());
     for (j, seg) in block.segments.iter().enumerate() {
-        let (values, coeffs) = match seg.basis {
-            Basis::Fourier => {
-                let coeffs = fourier_coeffs(seg, &seg.codes, prev.as_ref())
-                    .map_err(|what| FrameError::Segment { index: j, what })?;
-                let (_, values) = match seg.warp {
-                    Some(a) => synthesize_warped(&coeffs, seg.len, a as f64, block.value_type),
-                    None => synthesize(&coeffs, seg.len, block.value_type, fft),
-                };
-                (values, coeffs)
-            }
-            Basis::Trend => {
-                let bad = |what| FrameError::Segment { index: j, what };
-                let t = seg.trend.ok_or(bad("trend segment without its trend"))?;
-                let d = (t.degree as usize).min(seg.codes.len());
-                let (tc, fc) = seg.codes.split_at(d);
-                let coeffs = fourier_coeffs(seg, fc, prev.as_ref()).map_err(bad)?;
-                let shape = trend_shape(tc, t.step as f64, seg.len)
-                    .ok_or(bad("trend on a segment too short for its degree"))?;
-                let (_, values) = synthesize_trend(&coeffs, &shape, block.value_type, fft);
-                (values, coeffs)
-            }
-            Basis::Samples => {
-                let q = if seg.predicted {
-                    undelta_codes(&seg.codes)
-                } else {
-                    seg.codes.clone()
-                };
-                let s = seg.step as f64;
-                let v = q
-                    .iter()
-                    .map(|&c| block.value_type.round(c as f64 * s))
-                    .collect();
-                (v, Vec::new())
-            }
-            Basis::Lossless => (lossless_values(seg, block.value_type), Vec::new()),
-        };
+        let raw = segment_raw(seg, prev.as_ref(), block.value_type, fft)
+            .map_err(|what| FrameError::Segment { index: j, what })?;
         prev = matches!(seg.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
-            coeffs: coeffs.clone(),
+            coeffs: raw.coeffs.clone(),
             n: seg.len,
             ideal: seg.ideal_len as f64,
         });
-        let mut values = values;
-        if let Some(g) = &seg.guard {
-            crate::codec::guard::apply(&mut values, g, block.value_type);
-        }
-        for sp in &seg.specials {
-            if let Some(v) = values.get_mut(sp.index as usize) {
-                *v = special_value(sp.kind, block.value_type);
-            }
-        }
+        let values = finish_segment(&raw, seg, block.value_type);
         out.push(DecodedSegment {
             values,
             specials: seg.specials.clone(),
-            coeffs,
+            coeffs: raw.coeffs,
             peak: seg.guard.as_ref().map(|g| g.peak),
+            protected: seg.protect.as_ref().map(|p| p.bins.clone()),
         });
     }
     Ok(out)
+}
+
+/// A segment's output before rounding: what the decoder synthesizes from the codes.
+#[derive(Debug, Clone)]
+pub struct RawSegment {
+    /// Unrounded values (lossless: the exact values; NaN at non-finite positions).
+    pub values: Vec<f64>,
+    /// Whether `values` are exact (lossless) and are not rounded again.
+    pub exact: bool,
+    /// Reconstructed coefficients of bins 0 … L−1 (Fourier bases).
+    pub coeffs: Vec<C64>,
+}
+
+/// The decoder's unrounded output of one segment (`prev`: the previous Fourier segment of
+/// the block, for predicted segments). The encoder calls it to see what the decoder will see.
+pub fn segment_raw(
+    seg: &SegmentRecord,
+    prev: Option<&Prev>,
+    value_type: ValueType,
+    fft: &dyn Transform,
+) -> Result<RawSegment, &'static str> {
+    let lossy = |values, coeffs| RawSegment {
+        values,
+        exact: false,
+        coeffs,
+    };
+    Ok(match seg.basis {
+        Basis::Fourier => {
+            let coeffs = fourier_coeffs(seg, &seg.codes, prev)?;
+            let (y, _) = match seg.warp {
+                Some(a) => synthesize_warped(&coeffs, seg.len, a as f64, ValueType::F64),
+                None => synthesize(&coeffs, seg.len, ValueType::F64, fft),
+            };
+            lossy(y, coeffs)
+        }
+        Basis::Trend => {
+            let t = seg.trend.ok_or("trend segment without its trend")?;
+            let d = (t.degree as usize).min(seg.codes.len());
+            let (tc, fc) = seg.codes.split_at(d);
+            let coeffs = fourier_coeffs(seg, fc, prev)?;
+            let shape = trend_shape(tc, t.step as f64, seg.len)
+                .ok_or("trend on a segment too short for its degree")?;
+            let (y, _) = synthesize_trend(&coeffs, &shape, ValueType::F64, fft);
+            lossy(y, coeffs)
+        }
+        Basis::Samples => {
+            let q = if seg.predicted {
+                undelta_codes(&seg.codes)
+            } else {
+                seg.codes.clone()
+            };
+            let s = seg.step as f64;
+            lossy(q.iter().map(|&c| c as f64 * s).collect(), Vec::new())
+        }
+        Basis::Lossless => RawSegment {
+            values: lossless_values(seg, value_type),
+            exact: true,
+            coeffs: Vec::new(),
+        },
+    })
+}
+
+/// A segment's output from its unrounded values: protected bins' refinements added
+/// ([`crate::codec::bands`]), rounding to the output type, the peak guard's corrections
+/// ([`crate::codec::guard`]), then the special values in their places.
+pub fn finish_segment(raw: &RawSegment, seg: &SegmentRecord, value_type: ValueType) -> Vec<f64> {
+    let mut values = raw.values.clone();
+    if let Some(p) = &seg.protect {
+        crate::codec::bands::add_refinement(&mut values, p);
+    }
+    if !raw.exact {
+        for v in values.iter_mut() {
+            *v = value_type.round(*v);
+        }
+    }
+    if let Some(g) = &seg.guard {
+        crate::codec::guard::apply(&mut values, g, value_type);
+    }
+    for sp in &seg.specials {
+        if let Some(v) = values.get_mut(sp.index as usize) {
+            *v = special_value(sp.kind, value_type);
+        }
+    }
+    values
 }
 
 /// The f64 stand-in for a special value (NaN for null and NaN, exact bits for f64 NaN).

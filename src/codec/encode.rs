@@ -7,7 +7,12 @@
 
 use rayon::prelude::*;
 
+use crate::codec::bands::{
+    add_refinement, Protected, Protection, SegmentFrame, AMPLITUDE_TOLERANCE,
+};
+use crate::codec::decode::segment_raw;
 use crate::codec::decode::Prev;
+use crate::codec::fit::measure;
 use crate::codec::fit::{fit_lossless, fit_segment, refine_ideal, FitPlan, Fitted, SegmentInput};
 use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Special};
 use crate::codec::guard;
@@ -18,7 +23,7 @@ use crate::codec::segment::{
 };
 
 use crate::model::{Basis, Run, ValueType};
-use crate::signal::{amplitude_phase, rms_of, thd, Transform};
+use crate::signal::{amplitude_phase, fill_non_finite, is_real_bin, rms_of, thd, Transform, C64};
 
 /// Harmonics whose amplitude is summarized per archive row (`h1_amp`).
 pub const DERIVED_HARMONICS: usize = 1;
@@ -138,6 +143,8 @@ pub struct RunParams<'a> {
     pub budget: Budget,
     /// Peak limit ([`crate::codec::guard`]), channel units.
     pub peak_max: Option<f64>,
+    /// Protected bands ([`crate::codec::bands`]).
+    pub protection: Option<&'a Protection>,
     /// Codec parameters.
     pub params: &'a CodecParams,
     /// Transform.
@@ -159,6 +166,7 @@ impl<'a> RunParams<'a> {
             sample_rate,
             budget: params.budget_for(channel),
             peak_max: params.peak_for(channel),
+            protection: params.protection_for(channel),
             params,
             fft: crate::signal::RealFft::shared(),
         }
@@ -309,6 +317,139 @@ fn fit_guarded(
     (best.1, best.2)
 }
 
+/// What a protected segment must keep besides its budget.
+struct Promises<'a> {
+    protection: &'a Protection,
+    frame: SegmentFrame,
+    peak_max: Option<f64>,
+    specials: &'a [Special],
+    ideal_len: f32,
+    cycles: u32,
+}
+
+/// Bits of a protected segment's spectrum that are compared: the spectrum of `y` with the
+/// source's non-finite positions filled as `verify` fills them.
+fn filled_spectrum(y: &[f64], source: &[f64], fft: &dyn crate::signal::Transform) -> Vec<C64> {
+    let mut f: Vec<f64> = y
+        .iter()
+        .zip(source)
+        .map(|(&v, &x)| if x.is_finite() { v } else { f64::NAN })
+        .collect();
+    fill_non_finite(&mut f);
+    fft.forward(&f)
+}
+
+/// Keep a segment's protected bins ([`crate::codec::bands`]): refine each bin's coefficient
+/// with a step fine enough for its amplitude tolerance, apply the peak guard on top, and
+/// check on the decoder's own output that every protected amplitude and the budget hold,
+/// halving the step until they do; lossless when they cannot.
+fn protect_segment(
+    input: SegmentInput<'_>,
+    mut fitted: Fitted,
+    guard: Option<guard::Guard>,
+    prev: Option<&Prev>,
+    fft: &dyn crate::signal::Transform,
+    w: &Promises<'_>,
+) -> (Fitted, Option<guard::Guard>, Option<Protected>) {
+    let bins = w.protection.bins(w.frame);
+    if bins.is_empty() || fitted.plan.basis == Basis::Lossless {
+        return (fitted, guard, None);
+    }
+    let (x, vt) = (input.values, input.value_type);
+    let n = x.len();
+    let c_src = filled_spectrum(x, x, fft);
+    let floor_c = w.protection.floor * (n as f64).sqrt() / 2.0;
+    let tol: Vec<f64> = bins
+        .iter()
+        .map(|&k| (AMPLITUDE_TOLERANCE * c_src[k as usize].norm()).max(floor_c))
+        .collect();
+    let min_tol = tol.iter().copied().fold(f64::INFINITY, f64::min);
+    let record = SegmentRecord {
+        len: n,
+        ideal_len: w.ideal_len,
+        cycles: w.cycles,
+        basis: fitted.plan.basis,
+        order: fitted.plan.order.unwrap_or(0),
+        step: fitted.plan.step,
+        predicted: fitted.plan.predicted,
+        codes: fitted.codes.clone(),
+        raw: fitted.raw.clone(),
+        specials: w.specials.to_vec(),
+        trend: fitted.plan.trend,
+        warp: fitted.plan.warp,
+        guard: None,
+        protect: None,
+    };
+    if let Ok(raw) = segment_raw(&record, prev, vt, fft) {
+        let c_raw = filled_spectrum(&raw.values, x, fft);
+        // Component errors of at most step/2 keep a bin's amplitude within step/√2; half of
+        // that leaves room for the rounding to the output type.
+        let mut step =
+            crate::codec::guard::short_down((0.5 * std::f64::consts::SQRT_2 * min_tol) as f32);
+        for _ in 0..PROTECT_HALVINGS {
+            if !(step > 0.0 && step.is_finite()) {
+                break;
+            }
+            let q = |v: f64| (v / step as f64).round() as i64;
+            let codes = bins
+                .iter()
+                .flat_map(|&k| {
+                    let r = c_src[k as usize] - c_raw[k as usize];
+                    [
+                        q(r.re),
+                        if is_real_bin(k as usize, n) {
+                            0
+                        } else {
+                            q(r.im)
+                        },
+                    ]
+                })
+                .collect();
+            let prot = Protected {
+                step,
+                bins: bins.clone(),
+                codes,
+            };
+            let mut y = raw.values.clone();
+            add_refinement(&mut y, &prot);
+            let out: Vec<f64> = y.iter().map(|&v| vt.round(v)).collect();
+            let (_, bound) = measure(x, &out, Some(&y), vt);
+            if !(bound <= input.budget_rms) {
+                break;
+            }
+            let mut last = out.clone();
+            let mut g = None;
+            if let Some(limit) = w.peak_max {
+                let margin = guard::margin(&out, vt, true);
+                match guard::guard_segment(x, &out, vt, limit, margin) {
+                    Some(gg) => {
+                        guard::apply(&mut last, &gg, vt);
+                        g = Some(gg);
+                    }
+                    None => break,
+                }
+            }
+            let c_out = filled_spectrum(&last, x, fft);
+            let holds = bins.iter().zip(&tol).all(|(&k, &t)| {
+                let k = k as usize;
+                (c_out[k].norm() - c_src[k].norm()).abs() <= t
+            });
+            if holds {
+                let (err, _) = measure(x, &last, None, vt);
+                fitted.plan.error_rms = err;
+                fitted.plan.bound_rms = bound.max(err);
+                return (fitted, g, Some(prot));
+            }
+            step = crate::codec::guard::short_down(step / 2.0);
+        }
+    }
+    (fit_lossless(input, fitted.spectrum), None, None)
+}
+
+/// How many times a protected segment's refinement step is halved before it is stored
+/// losslessly.
+const PROTECT_HALVINGS: usize = 8;
+
 pub(crate) fn encode_block_of(
     run: &Run,
     segs: &[PlannedSegment],
@@ -362,11 +503,6 @@ pub(crate) fn encode_block_of(
             None => (fit_segment(input, prev.as_ref(), p.fft), None),
             Some(limit) => fit_guarded(input, prev.as_ref(), p.fft, limit),
         };
-        prev = matches!(fitted.plan.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
-            coeffs: fitted.coeffs.clone(),
-            n: s.len,
-            ideal: s.ideal_len as f64,
-        });
         let seg_specials: Vec<Special> = specials
             .iter()
             .filter(|sp| sp.0 >= s.start && sp.0 < s.start + s.len)
@@ -375,6 +511,31 @@ pub(crate) fn encode_block_of(
                 kind,
             })
             .collect();
+        let (fitted, guard, protect) = match p.protection {
+            None => (fitted, guard, None),
+            Some(protection) => {
+                let frame = SegmentFrame {
+                    len: s.len,
+                    sample_rate: fs,
+                    cycles: s.cycles,
+                    ideal_len: s.ideal_len as f64,
+                };
+                let w = Promises {
+                    protection,
+                    frame,
+                    peak_max: p.peak_max,
+                    specials: &seg_specials,
+                    ideal_len: s.ideal_len,
+                    cycles: s.cycles,
+                };
+                protect_segment(input, fitted, guard, prev.as_ref(), p.fft, &w)
+            }
+        };
+        prev = matches!(fitted.plan.basis, Basis::Fourier | Basis::Trend).then(|| Prev {
+            coeffs: fitted.coeffs.clone(),
+            n: s.len,
+            ideal: s.ideal_len as f64,
+        });
         let k = s.cycles as usize;
         let harmonic = |h: usize| -> Option<(f32, f32)> {
             if k == 0 || h * k > s.len / 2 {
@@ -415,6 +576,7 @@ pub(crate) fn encode_block_of(
             trend: fitted.plan.trend,
             warp: fitted.plan.warp,
             guard,
+            protect,
         });
         fits.push(fitted.plan);
     }

@@ -78,9 +78,11 @@ pub enum Family {
     Integer = 4,
     /// Peak-guard corrections ([`crate::codec::guard`]).
     Correction = 5,
+    /// Protected bins' refinements ([`crate::codec::bands`]).
+    Protected = 6,
 }
 
-const FAMILIES: usize = 6;
+const FAMILIES: usize = 7;
 
 /// What went wrong decoding a code stream.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, thiserror::Error)]

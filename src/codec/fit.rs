@@ -154,7 +154,7 @@ pub struct SegmentInput<'a> {
 /// RMS error of `output` against `source` over finite source values, and the error widened
 /// by the floating-point margin `tau` (see the module docs). `raw_y` is the unrounded
 /// reconstruction when the output went through an FFT (None when exact).
-fn measure(
+pub(crate) fn measure(
     source: &[f64],
     output: &[f64],
     raw_y: Option<&[f64]>,

@@ -16,6 +16,7 @@
 
 use integer_encoding::VarInt;
 
+pub use crate::codec::bands::Protected;
 use crate::codec::entropy::{CodeWriter, Family};
 pub use crate::codec::guard::Guard;
 use crate::codec::quant::code_count;
@@ -28,13 +29,17 @@ pub const BLOCK_FORMAT: u8 = 2;
 /// The first block layout (integer codes as LEB128 varints), still read.
 pub const BLOCK_FORMAT_VARINT: u8 = 1;
 
-/// Layout 2 with peak-guard corrections ([`crate::codec::guard`]): written only for blocks
-/// that hold a guarded segment, so that a build which does not know the guard refuses the
-/// block by its layout number instead of misreading it.
+/// Layout 2 with peak-guard corrections ([`crate::codec::guard`]) and protected bins
+/// ([`crate::codec::bands`]): written only for blocks that hold such a segment, so that a
+/// build which does not know them refuses the block by its layout number instead of
+/// misreading it.
 pub const BLOCK_FORMAT_GUARDED: u8 = 3;
 
 /// Segment tag bit: the segment carries a peak guard (layout 3 only).
 pub(crate) const TAG_GUARD: u8 = 0x40;
+
+/// Segment tag bit: the segment carries protected bins (layout 3 only).
+pub(crate) const TAG_PROTECT: u8 = 0x80;
 
 /// Magic bytes at the start of a decompressed block.
 pub(crate) const MAGIC: &[u8; 2] = b"CB";
@@ -121,6 +126,8 @@ pub struct SegmentRecord {
     pub warp: Option<f32>,
     /// The peak guard's corrections and claimed peak error ([`crate::codec::guard`]).
     pub guard: Option<Guard>,
+    /// Protected bins' refinements ([`crate::codec::bands`]).
+    pub protect: Option<Protected>,
 }
 
 impl SegmentRecord {
@@ -210,9 +217,11 @@ impl Block {
         self.segments.iter().map(|s| s.len).sum()
     }
 
-    /// Whether a segment carries a peak guard.
+    /// Whether a segment carries a peak guard or protected bins (block layout 3).
     pub fn guarded(&self) -> bool {
-        self.segments.iter().any(|s| s.guard.is_some())
+        self.segments
+            .iter()
+            .any(|s| s.guard.is_some() || s.protect.is_some())
     }
 }
 
@@ -275,7 +284,8 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
             s.basis.tag()
                 | if s.predicted { 0x10 } else { 0 }
                 | if s.warp.is_some() { 0x20 } else { 0 }
-                | if s.guard.is_some() { TAG_GUARD } else { 0 },
+                | if s.guard.is_some() { TAG_GUARD } else { 0 }
+                | if s.protect.is_some() { TAG_PROTECT } else { 0 },
         );
         put(&mut segs, s.len as u64);
         put(&mut segs, s.cycles as u64);
@@ -311,6 +321,15 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                 last = i;
             }
         }
+        if let Some(p) = &s.protect {
+            segs.extend_from_slice(&p.step.to_le_bytes());
+            put(&mut segs, p.bins.len() as u64);
+            let mut last = 0u32;
+            for &k in &p.bins {
+                put(&mut segs, (k - last) as u64);
+                last = k;
+            }
+        }
         put(&mut specials, s.specials.len() as u64);
         let mut last = 0u32;
         for sp in &s.specials {
@@ -341,6 +360,9 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                 }
                 if let Some(g) = &s.guard {
                     coded.segment(Family::Correction, &g.codes);
+                }
+                if let Some(p) = &s.protect {
+                    coded.segment(Family::Protected, &p.codes);
                 }
             }
         }
@@ -475,6 +497,7 @@ mod tests {
                     trend: None,
                     warp: None,
                     guard: None,
+                    protect: None,
                 },
                 SegmentRecord {
                     len: 8,
@@ -490,6 +513,7 @@ mod tests {
                     trend: None,
                     warp: Some(-0.003),
                     guard: None,
+                    protect: None,
                 },
                 SegmentRecord {
                     len: 6,
@@ -508,6 +532,7 @@ mod tests {
                     }),
                     warp: None,
                     guard: None,
+                    protect: None,
                 },
             ],
             times: BlockTimes::from_times(&[
@@ -534,6 +559,11 @@ mod tests {
             step: 0.5,
             at: vec![0, 4],
             codes: vec![-3, 9],
+        });
+        b.segments[1].protect = Some(Protected {
+            step: 0.125,
+            bins: vec![1, 4],
+            codes: vec![5, -6, 0, 7],
         });
         b
     }

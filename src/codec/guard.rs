@@ -136,7 +136,7 @@ pub fn guard_segment(
 const SHORT_MASK: u32 = 0xffff;
 
 /// `v` (positive) rounded down to 8 significant bits.
-fn short_down(v: f32) -> f32 {
+pub(crate) fn short_down(v: f32) -> f32 {
     f32::from_bits(v.to_bits() & !SHORT_MASK)
 }
 

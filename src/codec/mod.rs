@@ -4,6 +4,7 @@
 //!
 //! Never names Parquet, paths or columns: files are the `source` and `archive` layers' work.
 
+pub mod bands;
 pub mod decode;
 pub mod encode;
 pub mod entropy;

@@ -3,6 +3,7 @@
 
 use serde::{Deserialize, Serialize};
 
+use crate::codec::bands::Protection;
 use crate::codec::segment::{
     FundamentalSetting, SegmentSettings, DEFAULT_FALLBACK_SEGMENT_SECONDS, DEFAULT_MIN_CONFIDENCE,
     DEFAULT_MIN_SEGMENT_SECONDS,
@@ -83,6 +84,10 @@ pub struct CodecParams {
     pub peak_max: Option<f64>,
     /// Per-channel peak limits (pattern, limit), first match wins.
     pub peak_rules: Vec<(String, f64)>,
+    /// Protected bands of every channel ([`crate::codec::bands`]), or none.
+    pub protection: Option<Protection>,
+    /// Per-channel protected bands (pattern, bands), first match wins over `protection`.
+    pub protection_rules: Vec<(String, Protection)>,
 }
 
 impl CodecParams {
@@ -100,6 +105,15 @@ impl CodecParams {
             .iter()
             .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
             .map_or(self.peak_max, |(_, x)| Some(*x))
+    }
+
+    /// The protected bands of a channel: the first matching rule, else the default.
+    pub fn protection_for(&self, channel: &str) -> Option<&Protection> {
+        self.protection_rules
+            .iter()
+            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
+            .map(|(_, x)| x)
+            .or(self.protection.as_ref())
     }
 
     /// Segmentation settings for a sample rate.

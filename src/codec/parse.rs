@@ -6,8 +6,9 @@ use integer_encoding::VarInt;
 
 use crate::codec::entropy::{CodeReader, Family};
 use crate::codec::frame::{
-    code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, Guard, SegmentRecord,
-    BLOCK_FORMAT, BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES, TAG_GUARD,
+    code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, Guard, Protected,
+    SegmentRecord, BLOCK_FORMAT, BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
+    TAG_GUARD, TAG_PROTECT,
 };
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
@@ -182,7 +183,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
         let predicted = tag & 0x10 != 0;
         let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
-        if tag & 0x80 != 0 || (tag & TAG_GUARD != 0 && fmt != BLOCK_FORMAT_GUARDED) {
+        if tag & (TAG_GUARD | TAG_PROTECT) != 0 && fmt != BLOCK_FORMAT_GUARDED {
             return Err(sc.err("unknown segment flags"));
         }
         let cycles = sc.count(u32::MAX as usize)? as u32;
@@ -250,6 +251,36 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         } else {
             None
         };
+        let protect = if tag & TAG_PROTECT != 0 {
+            if basis == Basis::Lossless {
+                return Err(sc.err("protected bins on a lossless segment"));
+            }
+            let step = sc.f32()?;
+            if !(step > 0.0 && step.is_finite()) {
+                return Err(sc.err("protected bins' step out of range"));
+            }
+            let n = sc.count(len / 2)?;
+            let mut bins = Vec::with_capacity(n);
+            let mut k = 0u64;
+            for _ in 0..n {
+                let d: u64 = sc.var()?;
+                if d == 0 {
+                    return Err(sc.err("protected bins not increasing"));
+                }
+                k = k.checked_add(d).ok_or_else(|| sc.err("bin overflow"))?;
+                if k > (len / 2) as u64 {
+                    return Err(sc.err("protected bin beyond the segment's spectrum"));
+                }
+                bins.push(k as u32);
+            }
+            Some(Protected {
+                step,
+                bins,
+                codes: Vec::new(),
+            })
+        } else {
+            None
+        };
         let nsp = sp.count(len)?;
         let mut specials = Vec::with_capacity(nsp);
         let mut idx = 0u64;
@@ -288,6 +319,7 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
             trend,
             warp,
             guard,
+            protect,
         };
         let layout = code_layout(&rec, value_type);
         let n: usize = layout.into_iter().flatten().map(|p| p.1).sum();
@@ -302,6 +334,14 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
                 return Err(FrameError::TooLarge);
             }
             g.codes = codes.read(g.at.len(), [Some((Family::Correction, g.at.len())), None])?;
+        }
+        if let Some(p) = rec.protect.as_mut() {
+            let n = 2 * p.bins.len();
+            codes_total += n;
+            if codes_total > MAX_BLOCK_CODES {
+                return Err(FrameError::TooLarge);
+            }
+            p.codes = codes.read(n, [Some((Family::Protected, n)), None])?;
         }
         let nraw = rec.expected_raw(value_type);
         if raw_taken + nraw > raw_total {

@@ -60,6 +60,7 @@ impl ChannelEncoder {
             meta: ChannelMeta {
                 budget: Some(settings.codec.budget_for(&info.name)),
                 peak_max: settings.codec.peak_for(&info.name),
+                protection: settings.codec.protection_for(&info.name).cloned(),
                 ..ChannelMeta::new(&info, None, 0, 0, false)
             },
             info,

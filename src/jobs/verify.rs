@@ -14,11 +14,12 @@ use std::path::{Path, PathBuf};
 use serde::Serialize;
 
 use crate::archive::{decode_channels, Archive, ChannelMeta, DigestPolicy, DigestState};
+use crate::codec::bands::{amplitude, AMPLITUDE_TOLERANCE};
 use crate::codec::encode::finite_rms;
 use crate::error::{Error, Result};
 use crate::fsio::sha256_file;
 use crate::model::{ChannelSeries, SpecialKind, ValueType};
-use crate::signal::{rms_of, Transform};
+use crate::signal::{fill_non_finite, rms_of, Transform};
 use crate::source::{assemble, ChannelSamples, Mapping, Source};
 
 /// Relative slack when comparing a recomputed error with the recorded (f32, rounded-up) one:
@@ -156,7 +157,7 @@ pub fn verify(archive_path: &Path, source: &Path, fft: &dyn Transform) -> Result
             ));
             continue;
         };
-        channels.push(check_channel(&archive, cm, src, dec, &mut findings));
+        channels.push(check_channel(&archive, cm, (src, dec), fft, &mut findings));
     }
     for name in sources.keys() {
         if !archive.meta.channels.iter().any(|c| &c.name == name) {
@@ -230,10 +231,11 @@ fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, 
 fn check_channel(
     archive: &Archive,
     cm: &ChannelMeta,
-    src: &ChannelSeries,
-    dec: &ChannelSeries,
+    series: (&ChannelSeries, &ChannelSeries),
+    fft: &dyn Transform,
     findings: &mut Vec<Finding>,
 ) -> ChannelCheck {
+    let (src, dec) = series;
     let name = src.name.as_str();
     let mut check = ChannelCheck {
         channel: name.to_string(),
@@ -301,6 +303,14 @@ fn check_channel(
             r.start_ns,
             findings,
         );
+        if let Some(Some(bins)) = dec.protected.get(k) {
+            let seg = Segment {
+                source: &src.values[range.clone()],
+                decoded: &dec.values[range.clone()],
+                start_ns: r.start_ns,
+            };
+            check_protected(cm, bins, seg, fft, findings);
+        }
         if budget > 0.0 {
             check.worst_error_over_budget = check.worst_error_over_budget.max(err / budget);
         }
@@ -370,6 +380,67 @@ fn check_peak(
                 format!(
                     "largest absolute error {max_abs:.6e} is above the peak its segment records \
                      ({c:.6e})"
+                ),
+            ));
+        }
+    }
+}
+
+/// One segment's source and decoded values.
+struct Segment<'a> {
+    source: &'a [f64],
+    decoded: &'a [f64],
+    start_ns: i64,
+}
+
+/// Protected bins: each decoded amplitude within 1 % of the source's, or the channel's floor
+/// ([`crate::codec::bands`]), on spectra with non-finite positions filled alike.
+fn check_protected(
+    cm: &ChannelMeta,
+    bins: &[u32],
+    seg: Segment<'_>,
+    fft: &dyn Transform,
+    findings: &mut Vec<Finding>,
+) {
+    let name = Some(cm.name.as_str());
+    let Some(protection) = &cm.protection else {
+        findings.push(finding(
+            name,
+            Some(seg.start_ns),
+            "the segment carries protected bins the channel's metadata does not record".into(),
+        ));
+        return;
+    };
+    let n = seg.source.len();
+    let spectrum = |v: &[f64]| {
+        let mut f = v.to_vec();
+        fill_non_finite(&mut f);
+        fft.forward(&f)
+    };
+    let (src, dec) = (spectrum(seg.source), spectrum(seg.decoded));
+    let floor_c = protection.floor * (n as f64).sqrt() / 2.0;
+    for &k in bins {
+        let k = k as usize;
+        let (Some(a), Some(b)) = (src.get(k), dec.get(k)) else {
+            findings.push(finding(
+                name,
+                Some(seg.start_ns),
+                format!("protected bin {k} is beyond the segment's spectrum"),
+            ));
+            continue;
+        };
+        let tol = (AMPLITUDE_TOLERANCE * a.norm()).max(floor_c);
+        let off = (b.norm() - a.norm()).abs();
+        if !(off <= tol * (1.0 + RECORDED_ERROR_SLACK) + f64::MIN_POSITIVE) {
+            findings.push(finding(
+                name,
+                Some(seg.start_ns),
+                format!(
+                    "protected bin {k}: amplitude {:.6e} against the source's {:.6e} (allowed \
+                     {:.6e})",
+                    amplitude(*b, n),
+                    amplitude(*a, n),
+                    2.0 * tol / (n as f64).sqrt()
                 ),
             ));
         }

@@ -4,6 +4,7 @@
 #[path = "../support/mod.rs"]
 mod support;
 
+mod bands;
 mod closed_forms;
 mod coder;
 mod drift;
