@@ -132,3 +132,83 @@ fn rotor_bar_sidebands_keep_their_amplitude_under_a_budget_that_drops_them() {
     }
     println!("rotor-bar sidebands protected: payload {plain_bytes} -> {kept_bytes} B");
 }
+
+/// Envelope spectrum (peak amplitude per bin) of `x`: the magnitude of the analytic signal
+/// (Hilbert transform by the FFT: positive frequencies doubled, negative ones zeroed), mean
+/// removed, then its amplitude spectrum 2|E_k|/N (envelope analysis, Randall,
+/// Vibration-based Condition Monitoring, 2011, ch. 5). Computed with rustfft directly.
+fn envelope_spectrum(x: &[f64]) -> Vec<f64> {
+    use rustfft::{num_complex::Complex64, FftPlanner};
+    let n = x.len();
+    let mean = x.iter().sum::<f64>() / n as f64;
+    let mut planner = FftPlanner::<f64>::new();
+    let mut z: Vec<Complex64> = x.iter().map(|&v| Complex64::new(v - mean, 0.0)).collect();
+    planner.plan_fft_forward(n).process(&mut z);
+    for (k, v) in z.iter_mut().enumerate() {
+        if k == 0 || (n % 2 == 0 && k == n / 2) {
+            continue;
+        }
+        *v *= if k < n.div_ceil(2) { 2.0 } else { 0.0 };
+    }
+    planner.plan_fft_inverse(n).process(&mut z);
+    let env: Vec<f64> = z.iter().map(|c| c.norm() / n as f64).collect();
+    let em = env.iter().sum::<f64>() / n as f64;
+    let mut e: Vec<Complex64> = env.iter().map(|&v| Complex64::new(v - em, 0.0)).collect();
+    planner.plan_fft_forward(n).process(&mut e);
+    e[..n / 2]
+        .iter()
+        .map(|c| 2.0 * c.norm() / n as f64)
+        .collect()
+}
+
+#[test]
+fn the_bearing_force_envelope_line_at_the_outer_race_frequency_survives_with_it_protected() {
+    // tests/data/bearing-force-ladisk.parquet (LADISK, University of Ljubljana, via pybearing
+    // 1.0.4, MIT; provenance in tests/data/README.md): shaft about 306 rpm (5.1 Hz), outer-race
+    // fault order 2.5779 × shaft (the package's bearing table). The band is given in Hz: at
+    // this budget the trial coder picks a fundamental of about 6.66 Hz, not the shaft's, so
+    // an order band would land elsewhere. (Measured: the 5 % budget alone keeps this line
+    // too, within 0.2 %; the check holds the promise on a real recording, the sideband test
+    // above shows the need.)
+    let (name, run, fs, vt) = read_reference("tests/data/bearing-force-ladisk.parquet");
+    let bpfo = 2.5779 * 306.0 / 60.0;
+    let s = settings(EncodeOptions {
+        budget_rel: Some(0.05),
+        protect: Some(ProtectSpec {
+            hz: Some(format!("{bpfo}:0.5")),
+            ..Default::default()
+        }),
+        ..Default::default()
+    });
+    let p = RunParams::new(&name, vt, Some(fs), &s.codec);
+    let enc = encode_run(&run, &p).unwrap();
+    let segments = decode_run(&enc, RealFft::shared());
+    let protected = segments
+        .iter()
+        .filter(|d| d.record.protect.is_some())
+        .count();
+    assert!(protected > 0, "no segment carries protected bins");
+    let decoded: Vec<f64> = segments.into_iter().flat_map(|d| d.values).collect();
+    assert_eq!(decoded.len(), run.values.len());
+    let (a, b) = (envelope_spectrum(&run.values), envelope_spectrum(&decoded));
+    let hz_per_bin = fs / run.values.len() as f64;
+    // The line: the largest envelope bin within ±5 % of the outer-race frequency.
+    let lo = (0.95 * bpfo / hz_per_bin).floor() as usize;
+    let hi = (1.05 * bpfo / hz_per_bin).ceil() as usize;
+    let peak = |e: &[f64]| (lo..=hi).max_by(|&i, &j| e[i].total_cmp(&e[j])).unwrap();
+    let (ka, kb) = (peak(&a), peak(&b));
+    println!(
+        "envelope line: source bin {ka} ({:.3} Hz, {:.4e}), decoded bin {kb} ({:.4e}); payload {} B",
+        ka as f64 * hz_per_bin,
+        a[ka],
+        b[kb],
+        enc.payload_bytes()
+    );
+    assert_eq!(ka, kb, "the same bin");
+    assert!(
+        (b[kb] - a[ka]).abs() <= 0.05 * a[ka],
+        "{} vs {}",
+        b[kb],
+        a[ka]
+    );
+}
