@@ -145,7 +145,7 @@ fn envelope_spectrum(x: &[f64]) -> Vec<f64> {
     let mut z: Vec<Complex64> = x.iter().map(|&v| Complex64::new(v - mean, 0.0)).collect();
     planner.plan_fft_forward(n).process(&mut z);
     for (k, v) in z.iter_mut().enumerate() {
-        if k == 0 || (n % 2 == 0 && k == n / 2) {
+        if k == 0 || (n.is_multiple_of(2) && k == n / 2) {
             continue;
         }
         *v *= if k < n.div_ceil(2) { 2.0 } else { 0.0 };
