@@ -85,6 +85,10 @@
 //! refinement is added to the decoder's unrounded output before rounding, and `verify`
 //! recomputes every protected amplitude.
 //!
+//! **Events.** With event capture ([`codec::events`]) a segment whose crest factor,
+//! kurtosis or RMS jumps against the previous segments of its run is coded at a tenth of the
+//! budget, in rows of its own marked by the `event` column.
+//!
 //! **Coding.** A block's integer codes (quantized bins, trend coefficients, time-domain
 //! samples) form one range-coded stream with adaptive probabilities in contexts
 //! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block

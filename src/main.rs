@@ -125,6 +125,10 @@ struct EncodeArgs {
     /// Protect rotor-bar sidebands (1 ± 2s)·f (±0.5 Hz): `LINE_HZ,SLIP`.
     #[arg(long)]
     protect_rotor_bars: Option<String>,
+    /// Event capture: mark segments whose crest factor, kurtosis or RMS jumps against the
+    /// segments before them, and code them at a tenth of the budget.
+    #[arg(long)]
+    events: bool,
     /// Amplitude floor of protected bins (channel units; default 0).
     #[arg(long)]
     protect_floor: Option<f64>,
@@ -231,6 +235,7 @@ impl EncodeArgs {
             budget_floor: self.budget_floor,
             peak_max: self.peak_max,
             protect: self.protect()?,
+            events: self.events.then_some(true),
             fundamental: self
                 .fundamental_hz
                 .map(|f| f.to_string())

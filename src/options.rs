@@ -290,6 +290,9 @@ pub struct EncodeOptions {
     pub protect: Option<ProtectSpec>,
     /// Per-channel protected bands; the first matching rule wins over `protect`.
     pub protects: Vec<ProtectSpec>,
+    /// Event capture: segments whose crest factor, kurtosis or RMS jumps are marked and
+    /// coded at a tenth of the budget. Default false.
+    pub events: Option<bool>,
     /// "auto" (default), "none", or a frequency in Hz.
     pub fundamental: Option<String>,
     /// Whole cycles per segment. Default: fewest spanning 200 ms.
@@ -348,6 +351,8 @@ struct SettingsRecord<'a> {
     protection: &'a Option<Protection>,
     #[serde(skip_serializing_if = "<[_]>::is_empty")]
     protection_rules: &'a [(String, Protection)],
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    events: bool,
 }
 
 impl Serialize for Settings {
@@ -371,6 +376,7 @@ impl Serialize for Settings {
             peak_rules: &c.peak_rules,
             protection: &c.protection,
             protection_rules: &c.protection_rules,
+            events: c.events,
         }
         .serialize(s)
     }
@@ -391,6 +397,7 @@ impl EncodeOptions {
             budget_floor,
             peak_max,
             protect,
+            events,
             fundamental,
             cycles_per_segment,
             layout,
@@ -542,6 +549,7 @@ impl EncodeOptions {
                 peak_rules,
                 protection,
                 protection_rules,
+                events: self.events.unwrap_or(false),
             },
         })
     }

@@ -51,6 +51,9 @@ pub struct ChannelInspect {
     /// Protected bins kept, summed over segments.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub protected_bins: Option<usize>,
+    /// Start times (ns) of the channel's event rows (event capture only).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub events: Option<Vec<i64>>,
 }
 
 /// How the archive's bytes split.
@@ -174,6 +177,12 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
             worst_peak,
             corrected_samples: guarded
                 .then(|| segs.iter().filter_map(|s| s.corrected).sum::<usize>()),
+            events: cm.event_budget_factor.map(|_| {
+                rows.iter()
+                    .filter(|r| r.event == Some(true))
+                    .map(|r| r.start_ns)
+                    .collect()
+            }),
             protected_bands: cm.protection.as_ref().map(|p| p.bands.len()),
             protected_bins: cm
                 .protection
@@ -312,6 +321,20 @@ pub fn inspect_text(i: &Inspect) -> String {
         }
     }
     for c in &i.channels {
+        if let Some(ev) = &c.events {
+            let shown: Vec<String> = ev.iter().take(5).map(|t| t.to_string()).collect();
+            s.push_str(&format!(
+                "events on {}: {} event row(s){}{}\n",
+                c.channel,
+                ev.len(),
+                if ev.is_empty() {
+                    ""
+                } else {
+                    ", starting (ns) "
+                },
+                shown.join(", ") + if ev.len() > 5 { ", …" } else { "" }
+            ));
+        }
         if let Some(bands) = c.protected_bands {
             s.push_str(&format!(
                 "protected bands on {}: {bands} band(s), {} bin(s) kept within 1 % of their \

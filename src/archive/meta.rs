@@ -152,6 +152,10 @@ pub struct ChannelMeta {
     /// Absent without protection.
     #[serde(default, skip_serializing_if = "Option::is_none")]
     pub protection: Option<crate::codec::bands::Protection>,
+    /// Event capture ([`crate::codec::events`]): an event row's budget is the channel's
+    /// rule × this factor. Absent without event capture.
+    #[serde(default, skip_serializing_if = "Option::is_none")]
+    pub event_budget_factor: Option<f64>,
 }
 
 impl ChannelMeta {
@@ -179,6 +183,7 @@ impl ChannelMeta {
             budget: None,
             peak_max: None,
             protection: None,
+            event_budget_factor: None,
         }
     }
 

@@ -5,8 +5,8 @@
 use std::sync::Arc;
 
 use arrow::array::{
-    Array, ArrayRef, AsArray, BinaryArray, Float32Array, Int32Array, RecordBatch, StringArray,
-    TimestampNanosecondArray,
+    Array, ArrayRef, AsArray, BinaryArray, BooleanArray, Float32Array, Int32Array, RecordBatch,
+    StringArray, TimestampNanosecondArray,
 };
 use arrow::datatypes::{
     DataType, Field, Float32Type, Int32Type, Schema, TimeUnit, TimestampNanosecondType,
@@ -47,6 +47,10 @@ pub fn block_checksum(frame: &[u8], rows: &[SliceRow]) -> u32 {
         for v in [r.fundamental_hz, r.h1_amp, r.thd] {
             opt32(&mut h, v);
         }
+        // Absent in archives written without event capture (and before it existed).
+        if let Some(e) = r.event {
+            h.update(&[2 + e as u8]);
+        }
     }
     h.finalize()
 }
@@ -78,6 +82,9 @@ pub struct SliceRow {
     pub h1_amp: Option<f32>,
     /// THD (IEEE 519): the segments' harmonic power over their fundamental power.
     pub thd: Option<f32>,
+    /// Whether the row's segments are events ([`crate::codec::events`]; a row holds events
+    /// or non-events, never both); `None` without event capture.
+    pub event: Option<bool>,
     /// The block's frame (first row of a block).
     pub payload: Option<Vec<u8>>,
     /// CRC-32 of the frame and the block's rows (first row of a block; stored after the
@@ -111,7 +118,10 @@ pub fn slice_rows(channel: &str, block: u32, segs: &[SegmentSummary]) -> Vec<Sli
     let mut i = 0;
     while i < segs.len() {
         let mut j = i + 1;
-        while j < segs.len() && segs[j].start_ns.saturating_sub(segs[i].start_ns) < ROW_SPAN_NS {
+        while j < segs.len()
+            && segs[j].start_ns.saturating_sub(segs[i].start_ns) < ROW_SPAN_NS
+            && segs[j].event == segs[i].event
+        {
             j += 1;
         }
         out.push(summarize(channel, block, &segs[i..j]));
@@ -159,6 +169,7 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
         rms: compact((ms / n.max(1.0)).sqrt()),
         h1_amp: (aw > 0.0).then(|| compact((a2 / aw).sqrt())),
         thd: (tw > 0.0).then(|| compact((h2 / tw).sqrt())),
+        event: segs[0].event,
         payload: None,
         checksum: None,
     }
@@ -177,6 +188,8 @@ pub enum ColumnType {
     UInt32,
     /// 32-bit float.
     Float32,
+    /// Boolean.
+    Boolean,
     /// Bytes.
     Binary,
 }
@@ -192,6 +205,7 @@ impl ColumnType {
             ColumnType::Int32 => DataType::Int32,
             ColumnType::UInt32 => DataType::UInt32,
             ColumnType::Float32 => DataType::Float32,
+            ColumnType::Boolean => DataType::Boolean,
             ColumnType::Binary => DataType::Binary,
         }
     }
@@ -258,8 +272,8 @@ const fn column(
 /// and `inspect`'s byte breakdown are made from.
 pub const COLUMNS: &[Column] = {
     use ColumnClass::{Derived, Metadata, Payload};
-    use ColumnType::{Binary, Float32, Int32, TimestampNsUtc, Utf8};
-    use ColumnWriting::{ByteStreamSplit as Bss, Delta, Dictionary as Dict, Frame};
+    use ColumnType::{Binary, Boolean, Float32, Int32, TimestampNsUtc, Utf8};
+    use ColumnWriting::{ByteStreamSplit as Bss, Delta, Dictionary as Dict, Frame, Plain};
     &[
         column("channel", Utf8, false, Dict, Metadata),
         column("start", TimestampNsUtc, false, Delta, Metadata),
@@ -271,6 +285,7 @@ pub const COLUMNS: &[Column] = {
         column("rms", Float32, false, Bss, Derived),
         column("h1_amp", Float32, true, Bss, Derived),
         column("thd", Float32, true, Bss, Derived),
+        column("event", Boolean, true, Plain, Metadata),
         column("payload", Binary, true, Frame, Payload),
     ]
 };
@@ -355,6 +370,7 @@ pub(crate) fn rows_to_batch(
         f32s(|r| r.rms),
         opt_f32s(|r| r.h1_amp),
         opt_f32s(|r| r.thd),
+        Arc::new(BooleanArray::from_iter(rows.iter().map(|r| r.event))),
         Arc::new(BinaryArray::from_iter(rows.iter().map(|r| {
             r.payload.as_ref().map(|p| {
                 let mut v = Vec::with_capacity(p.len() + 4);
@@ -402,6 +418,12 @@ pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SliceRow>) -> Result<
         f("thd")?,
     );
     let payload = typed("payload", &DataType::Binary)?.as_binary::<i32>();
+    // Optional: archives before event capture do not have it.
+    let event = match b.column_by_name("event") {
+        None => None,
+        Some(c) if c.data_type() == &DataType::Boolean => Some(c.as_boolean()),
+        Some(c) => return Err(format!("column `event` has type {}", c.data_type())),
+    };
     let opt = |a: &arrow::array::PrimitiveArray<Float32Type>, i: usize| {
         (!a.is_null(i)).then(|| a.value(i))
     };
@@ -440,6 +462,7 @@ pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SliceRow>) -> Result<
             rms: required(rms, "rms")?,
             h1_amp: opt(h1, i),
             thd: opt(thd, i),
+            event: event.and_then(|e| (!e.is_null(i)).then(|| e.value(i))),
             payload: frame,
             checksum,
         });

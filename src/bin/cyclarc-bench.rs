@@ -875,6 +875,7 @@ impl Bench {
                     budget: s.codec.budget,
                     peak_max: s.codec.peak_max,
                     protection: None,
+                    events: false,
                     params: &s.codec,
                     fft,
                 };

@@ -12,6 +12,7 @@ use crate::codec::bands::{
 };
 use crate::codec::decode::segment_raw;
 use crate::codec::decode::Prev;
+use crate::codec::events::{EventDetector, EVENT_BUDGET_FACTOR};
 use crate::codec::fit::measure;
 use crate::codec::fit::{fit_lossless, fit_segment, refine_ideal, FitPlan, Fitted, SegmentInput};
 use crate::codec::frame::{encode_block, Block, BlockTimes, SegmentRecord, Special};
@@ -95,6 +96,8 @@ pub struct SegmentSummary {
     pub harmonics: Vec<Option<(f32, f32)>>,
     /// THD.
     pub thd: Option<f32>,
+    /// Whether event capture marked the segment (`None` without event capture).
+    pub event: Option<bool>,
 }
 
 /// One encoded block of one channel: its frame and a summary of each of its segments.
@@ -145,6 +148,8 @@ pub struct RunParams<'a> {
     pub peak_max: Option<f64>,
     /// Protected bands ([`crate::codec::bands`]).
     pub protection: Option<&'a Protection>,
+    /// Event capture ([`crate::codec::events`]).
+    pub events: bool,
     /// Codec parameters.
     pub params: &'a CodecParams,
     /// Transform.
@@ -167,6 +172,7 @@ impl<'a> RunParams<'a> {
             budget: params.budget_for(channel),
             peak_max: params.peak_for(channel),
             protection: params.protection_for(channel),
+            events: params.events,
             params,
             fft: crate::signal::RealFft::shared(),
         }
@@ -223,7 +229,13 @@ impl Arbiter for RunParams<'_> {
 
 /// Encode one run: segment, fit and pack; blocks in parallel.
 pub fn encode_run(run: &Run, p: &RunParams<'_>) -> Result<RunEncoding, CodecError> {
-    let plan = plan_run(run, p);
+    let mut plan = plan_run(run, p);
+    if p.events {
+        let mut d = EventDetector::default();
+        for s in &mut plan.segments {
+            s.event = d.mark(&run.values[s.start..s.start + s.len]);
+        }
+    }
     let ranges = block_ranges(
         &plan.segments,
         p.params.block_segments,
@@ -315,6 +327,12 @@ fn fit_guarded(
         }
     }
     (best.1, best.2)
+}
+
+/// An event segment's budget: the segment's budget × [`EVENT_BUDGET_FACTOR`], rounded down
+/// to f32 as every budget is.
+pub fn event_budget(budget: f64) -> f64 {
+    crate::codec::quant::budget_to_f32(budget * EVENT_BUDGET_FACTOR)
 }
 
 /// What a protected segment must keep besides its budget.
@@ -477,6 +495,11 @@ pub(crate) fn encode_block_of(
                 time_ns: run.times[s.start],
                 budget,
             })?;
+        let budget = if s.event {
+            event_budget(budget)
+        } else {
+            budget
+        };
         // Tune the previous segment's stored ideal length to the measured phase advance, so
         // that this segment's prediction lines up (the decoder reads it from that segment).
         if let (Some(pv), Some(rec), Some(row)) =
@@ -561,6 +584,7 @@ pub(crate) fn encode_block_of(
             } else {
                 None
             },
+            event: p.events.then_some(s.event),
         });
         records.push(SegmentRecord {
             len: s.len,

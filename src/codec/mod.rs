@@ -9,6 +9,7 @@ pub mod decode;
 pub mod encode;
 pub mod entropy;
 pub mod estimate;
+pub mod events;
 pub mod fit;
 pub mod frame;
 pub mod guard;

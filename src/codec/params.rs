@@ -88,6 +88,8 @@ pub struct CodecParams {
     pub protection: Option<Protection>,
     /// Per-channel protected bands (pattern, bands), first match wins over `protection`.
     pub protection_rules: Vec<(String, Protection)>,
+    /// Event capture ([`crate::codec::events`]) on every channel.
+    pub events: bool,
 }
 
 impl CodecParams {

@@ -119,6 +119,9 @@ pub struct PlannedSegment {
     /// Ideal length Λ = K·P in samples, rounded to f32 (the value stored in the archive);
     /// equals `len` when not periodic.
     pub ideal_len: f32,
+    /// Whether event capture marked the segment ([`crate::codec::events`]); the planner
+    /// leaves it false.
+    pub event: bool,
 }
 
 impl PlannedSegment {
@@ -486,6 +489,7 @@ impl Planner {
                 } else {
                     (e - start) as f32
                 },
+                event: false,
             });
             self.phi = if whole { next } else { e as f64 };
         }

@@ -13,6 +13,7 @@ use rayon::prelude::*;
 
 use crate::archive::{ArchiveMeta, ArchiveWriter, ChannelMeta, SourceMeta};
 use crate::codec::encode::{block_ranges, encode_block_of, EncodedBlock, RunParams};
+use crate::codec::events::EventDetector;
 use crate::codec::fit::FitPlan;
 use crate::codec::segment::{FundamentalSetting, PlannedSegment, Planner};
 use crate::error::{Error, Result};
@@ -41,6 +42,8 @@ pub(crate) struct RunState {
     base: usize,
     planner: Planner,
     pending: Vec<PlannedSegment>,
+    /// Event capture's memory of the run.
+    events: EventDetector,
 }
 
 /// One channel being encoded as its samples arrive.
@@ -61,6 +64,10 @@ impl ChannelEncoder {
                 budget: Some(settings.codec.budget_for(&info.name)),
                 peak_max: settings.codec.peak_for(&info.name),
                 protection: settings.codec.protection_for(&info.name).cloned(),
+                event_budget_factor: settings
+                    .codec
+                    .events
+                    .then_some(crate::codec::events::EVENT_BUDGET_FACTOR),
                 ..ChannelMeta::new(&info, None, 0, 0, false)
             },
             info,
@@ -136,6 +143,7 @@ impl ChannelEncoder {
                             base: 0,
                             planner: Planner::new(seg),
                             pending: Vec::new(),
+                            events: EventDetector::default(),
                         }
                     });
                     let off = run.buf.times.len();
@@ -173,9 +181,15 @@ pub(crate) fn advance_run(
     arbiter: &RunParams<'_>,
     jobs: &mut Vec<BlockJob>,
 ) {
-    let segs = run
+    let mut segs = run
         .planner
         .advance(&run.buf.values, run.base, complete, Some(arbiter));
+    if arbiter.events {
+        for s in &mut segs {
+            let at = s.start - run.base;
+            s.event = run.events.mark(&run.buf.values[at..at + s.len]);
+        }
+    }
     run.pending.extend(segs);
     // Group into blocks exactly as `block_ranges` does; the last group waits for more
     // segments unless the run is complete.

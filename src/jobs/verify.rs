@@ -54,6 +54,8 @@ pub struct ChannelCheck {
     pub max_abs_error: f64,
     /// The channel's peak limit (peak guard), which every sample was checked against.
     pub peak_max: Option<f64>,
+    /// Event segments, checked against their tighter budget.
+    pub events: usize,
 }
 
 /// The outcome of `verify`.
@@ -245,6 +247,7 @@ fn check_channel(
         worst_error_rms: 0.0,
         max_abs_error: 0.0,
         peak_max: cm.peak_max,
+        events: 0,
     };
     if src.times != dec.times {
         let at = src
@@ -294,6 +297,22 @@ fn check_channel(
             ));
             continue;
         };
+        // An event row's budget is the tighter one event capture promised.
+        let budget = match (r.event, cm.event_budget_factor) {
+            (Some(true), Some(f)) => crate::codec::quant::budget_to_f32(budget * f),
+            (Some(true), None) => {
+                findings.push(finding(
+                    Some(name),
+                    Some(r.start_ns),
+                    "an event row in a channel whose metadata records no event capture".into(),
+                ));
+                budget
+            }
+            _ => budget,
+        };
+        if r.event == Some(true) {
+            check.events += 1;
+        }
         check.worst_error_rms = check.worst_error_rms.max(err);
         check.max_abs_error = check.max_abs_error.max(max_abs);
         check_peak(

@@ -10,6 +10,7 @@ use crate::support::archive::*;
 use crate::support::series::*;
 use crate::support::source::*;
 use crate::support::*;
+use arrow::array::{Array, AsArray};
 use arrow::datatypes::TimeUnit;
 
 const FS: f64 = 10_000.0;
@@ -807,4 +808,70 @@ fn protected_sidebands_pass_verify_and_inspect_lists_them() {
     s.encode(&src, &s.path("b.parquet"), &bad)
         .expect(2)
         .says(&["protect-hz"]);
+}
+
+// ── encode --events ──
+
+#[test]
+fn events_are_a_column_any_parquet_reader_can_query_and_verify_holds_them() {
+    // A 48 Hz wave whose 5th 200 ms window carries a burst of impacts (invented signal).
+    let s = Lab::new();
+    let src = s.path("src.parquet");
+    let n = 20_000;
+    let mut x = wave(n, FS, 48.0, 1.0, 0.01, 77);
+    for (j, v) in x[8600..9000].iter_mut().enumerate() {
+        let t = (j % 100) as f64 / FS;
+        *v += 6.0 * (-t * 3000.0).exp() * (std::f64::consts::TAU * 2500.0 * t).sin();
+    }
+    write_wide(
+        &src,
+        &[Chan::new("v", VType::F64, grid(n, FS), &x)],
+        Spec::new(TimeKind::Ts(TimeUnit::Nanosecond, None)),
+        "time",
+    );
+    let (a1, a2) = (s.path("a1.parquet"), s.path("a2.parquet"));
+    let args = [
+        "--events",
+        "--fundamental-hz",
+        "48",
+        "--cycles-per-segment",
+        "10",
+    ];
+    s.run(
+        &[
+            &["--threads", "1", "encode", ps(&src), "--out", ps(&a1)][..],
+            &args[..],
+        ]
+        .concat(),
+    )
+    .expect(0);
+    s.run(
+        &[
+            &["--threads", "2", "encode", ps(&src), "--out", ps(&a2)][..],
+            &args[..],
+        ]
+        .concat(),
+    )
+    .expect(0);
+    assert_eq!(std::fs::read(&a1).unwrap(), std::fs::read(&a2).unwrap());
+    s.run(&["verify", ps(&a1), "--source", ps(&src)]).expect(0);
+    // The column, read with the parquet crate alone: the burst's row is marked.
+    let t = read_table(&a1);
+    let ev = t.batch.column_by_name("event").expect("event column");
+    let start = raw_times(t.batch.column_by_name("start").expect("start"));
+    let ev = ev.as_boolean();
+    let marked: Vec<i64> = (0..ev.len())
+        .filter(|&i| !ev.is_null(i) && ev.value(i))
+        .map(|i| start[i])
+        .collect();
+    let burst = grid(n, FS)[8600];
+    assert!(
+        marked
+            .iter()
+            .any(|&t0| t0 <= burst && burst - t0 < 210_000_000),
+        "burst at {burst} not in the event rows {marked:?}"
+    );
+    s.run(&["inspect", ps(&a1)])
+        .expect(0)
+        .prints(&["events on v:"]);
 }

@@ -9,6 +9,7 @@ mod closed_forms;
 mod coder;
 mod drift;
 mod ecg;
+mod events;
 mod fft_reference;
 mod fundamental;
 mod guard;
