@@ -263,6 +263,16 @@ impl ProtectSpec {
     }
 }
 
+/// A rule's channel pattern must be a valid glob; `name` is the option.
+fn check_pattern(name: &str, pattern: &str) -> Result<()> {
+    glob::Pattern::new(pattern)
+        .map(|_| ())
+        .map_err(|e| Error::InvalidOption {
+            name: name.into(),
+            reason: format!("`{pattern}`: {e}"),
+        })
+}
+
 /// Default half-width of a bearing's defect-order bands, as a fraction of the order.
 pub const DEFAULT_BEARING_SLIP: f64 = 0.02;
 
@@ -432,10 +442,7 @@ impl EncodeOptions {
         });
         let mut budget_rules = Vec::new();
         for r in &self.budgets {
-            glob::Pattern::new(&r.channels).map_err(|e| Error::InvalidOption {
-                name: "budgets.channels".into(),
-                reason: format!("`{}`: {e}", r.channels),
-            })?;
+            check_pattern("budgets.channels", &r.channels)?;
             let b = BudgetSpec {
                 rms: r.rms,
                 rel: r.rel,
@@ -461,10 +468,7 @@ impl EncodeOptions {
         let peak_max = self.peak_max.map(|v| peak("peak-max", v)).transpose()?;
         let mut peak_rules = Vec::new();
         for r in &self.peaks {
-            glob::Pattern::new(&r.channels).map_err(|e| Error::InvalidOption {
-                name: "peaks.channels".into(),
-                reason: format!("`{}`: {e}", r.channels),
-            })?;
+            check_pattern("peaks.channels", &r.channels)?;
             peak_rules.push((r.channels.clone(), peak("peaks.max", r.max)?));
         }
         let protection = match &self.protect {
@@ -474,10 +478,7 @@ impl EncodeOptions {
         let mut protection_rules = Vec::new();
         for r in &self.protects {
             let pattern = r.channels.clone().unwrap_or_else(|| "*".into());
-            glob::Pattern::new(&pattern).map_err(|e| Error::InvalidOption {
-                name: "protects.channels".into(),
-                reason: format!("`{pattern}`: {e}"),
-            })?;
+            check_pattern("protects.channels", &pattern)?;
             protection_rules.push((pattern, r.resolve("protects.")?));
         }
         let fundamental = match self.fundamental.as_deref().map(str::trim) {

@@ -250,6 +250,16 @@ fn put<V: VarInt>(out: &mut Vec<u8>, v: V) {
     out.extend_from_slice(&buf[..n]);
 }
 
+/// A count, then increasing indices as gaps from 0 (read back by the parser's `indices`).
+fn put_gaps(out: &mut Vec<u8>, at: &[u32]) {
+    put(out, at.len() as u64);
+    let mut last = 0u32;
+    for &i in at {
+        put(out, (i - last) as u64);
+        last = i;
+    }
+}
+
 /// Serialize a block (before compression) in this build's layout: [`BLOCK_FORMAT`], or
 /// [`BLOCK_FORMAT_GUARDED`] when a segment carries a peak guard.
 pub fn serialize_block(b: &Block) -> Vec<u8> {
@@ -314,21 +324,11 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
         if let Some(g) = &s.guard {
             segs.extend_from_slice(&g.peak.to_le_bytes());
             segs.extend_from_slice(&g.step.to_le_bytes());
-            put(&mut segs, g.at.len() as u64);
-            let mut last = 0u32;
-            for &i in &g.at {
-                put(&mut segs, (i - last) as u64);
-                last = i;
-            }
+            put_gaps(&mut segs, &g.at);
         }
         if let Some(p) = &s.protect {
             segs.extend_from_slice(&p.step.to_le_bytes());
-            put(&mut segs, p.bins.len() as u64);
-            let mut last = 0u32;
-            for &k in &p.bins {
-                put(&mut segs, (k - last) as u64);
-                last = k;
-            }
+            put_gaps(&mut segs, &p.bins);
         }
         put(&mut specials, s.specials.len() as u64);
         let mut last = 0u32;

@@ -63,6 +63,14 @@ impl Budget {
     }
 }
 
+/// The value of the first rule whose glob pattern matches the channel's name.
+fn first_match<'a, T>(rules: &'a [(String, T)], channel: &str) -> Option<&'a T> {
+    rules
+        .iter()
+        .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
+        .map(|(_, v)| v)
+}
+
 /// What the codec needs to encode a channel.
 #[derive(Debug, Clone, PartialEq)]
 pub struct CodecParams {
@@ -95,27 +103,17 @@ pub struct CodecParams {
 impl CodecParams {
     /// The budget for a channel: the first matching rule, else the default.
     pub fn budget_for(&self, channel: &str) -> Budget {
-        self.budget_rules
-            .iter()
-            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
-            .map_or(self.budget, |(_, b)| *b)
+        first_match(&self.budget_rules, channel).map_or(self.budget, |b| *b)
     }
 
     /// The peak limit for a channel: the first matching rule, else the default.
     pub fn peak_for(&self, channel: &str) -> Option<f64> {
-        self.peak_rules
-            .iter()
-            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
-            .map_or(self.peak_max, |(_, x)| Some(*x))
+        first_match(&self.peak_rules, channel).map_or(self.peak_max, |x| Some(*x))
     }
 
     /// The protected bands of a channel: the first matching rule, else the default.
     pub fn protection_for(&self, channel: &str) -> Option<&Protection> {
-        self.protection_rules
-            .iter()
-            .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))
-            .map(|(_, x)| x)
-            .or(self.protection.as_ref())
+        first_match(&self.protection_rules, channel).or(self.protection.as_ref())
     }
 
     /// Segmentation settings for a sample rate.

@@ -91,6 +91,31 @@ impl<'a> Cursor<'a> {
             Err(self.err("trailing bytes"))
         }
     }
+    /// `n` strictly increasing indices in `lowest .. end`, stored as gaps from 0 (the
+    /// writer's `put_gaps`); `what` names them in errors.
+    fn indices(
+        &mut self,
+        n: usize,
+        lowest: u64,
+        end: usize,
+        what: &'static str,
+    ) -> Result<Vec<u32>, FrameError> {
+        let mut out = Vec::with_capacity(n);
+        let mut at = 0u64;
+        for i in 0..n {
+            let d: u64 = self.var()?;
+            if i > 0 && d == 0 {
+                return Err(self.err(what));
+            }
+            at = at.checked_add(d).ok_or_else(|| self.err(what))?;
+            if at < lowest || at >= end as u64 {
+                return Err(self.err(what));
+            }
+            out.push(at as u32);
+        }
+        Ok(out)
+    }
+
     fn count(&mut self, limit: usize) -> Result<usize, FrameError> {
         let v: u64 = self.var()?;
         if v as u128 > limit as u128 {
@@ -229,19 +254,12 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
                 return Err(sc.err("peak guard's peak or step out of range"));
             }
             let n = sc.count(len)?;
-            let mut at = Vec::with_capacity(n);
-            let mut idx = 0u64;
-            for i in 0..n {
-                let d: u64 = sc.var()?;
-                if i > 0 && d == 0 {
-                    return Err(sc.err("corrected samples not increasing"));
-                }
-                idx = idx.checked_add(d).ok_or_else(|| sc.err("index overflow"))?;
-                if idx >= len as u64 {
-                    return Err(sc.err("corrected sample beyond segment"));
-                }
-                at.push(idx as u32);
-            }
+            let at = sc.indices(
+                n,
+                0,
+                len,
+                "corrected samples not increasing or beyond the segment",
+            )?;
             Some(Guard {
                 peak,
                 step,
@@ -260,19 +278,12 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
                 return Err(sc.err("protected bins' step out of range"));
             }
             let n = sc.count(len / 2)?;
-            let mut bins = Vec::with_capacity(n);
-            let mut k = 0u64;
-            for _ in 0..n {
-                let d: u64 = sc.var()?;
-                if d == 0 {
-                    return Err(sc.err("protected bins not increasing"));
-                }
-                k = k.checked_add(d).ok_or_else(|| sc.err("bin overflow"))?;
-                if k > (len / 2) as u64 {
-                    return Err(sc.err("protected bin beyond the segment's spectrum"));
-                }
-                bins.push(k as u32);
-            }
+            let bins = sc.indices(
+                n,
+                1,
+                len / 2 + 1,
+                "protected bins not increasing or beyond the spectrum",
+            )?;
             Some(Protected {
                 step,
                 bins,
