@@ -221,7 +221,14 @@ impl Arbiter for RunParams<'_> {
             values: x.to_vec(),
             specials: Vec::new(),
         };
-        encode_block_of(&run, segments, self)
+        // Without protected bands: order bands fall only on periodic segments, so pricing
+        // them would steer the planner away from the very segmentation that protects them
+        // (measured: order-protected clean current was planned in fixed blocks, 0 bins kept).
+        let p = RunParams {
+            protection: None,
+            ..*self
+        };
+        encode_block_of(&run, segments, &p)
             .ok()
             .map(|b| b.frame.len())
     }
