@@ -9,9 +9,13 @@ use clap::{Args, Parser, Subcommand};
 
 use cyclarc::archive::segment_list;
 use cyclarc::jobs::pipeline;
-use cyclarc::options::{BearingSpec, EncodeOptions, Layout, ProtectSpec, RotorBarSpec};
+use cyclarc::jobs::survey::survey;
+use cyclarc::jobs::trend::{trend, trend_columns, TrendQuery};
+use cyclarc::options::{
+    BearingSpec, BudgetChoice, EncodeOptions, Layout, ProtectSpec, RotorBarSpec,
+};
 use cyclarc::signal::RealFft;
-use cyclarc::{decode_file, encode_file, report, Archive, DigestPolicy, Error, JobControl};
+use cyclarc::{decode_file, encode_file, plot, report, Archive, DigestPolicy, Error, JobControl};
 
 #[derive(Parser)]
 #[command(
@@ -81,6 +85,38 @@ enum Command {
         #[arg(long, conflicts_with_all = ["json", "segments"])]
         meta: bool,
     },
+    /// Which budget to use: per channel the noise floor, the ratio-versus-budget curve
+    /// (the real encoder on a sample of the source) and a recommended budget.
+    Survey(Box<SurveyArgs>),
+    /// Harmonics, THD, RMS and the fundamental over time, from the stored coefficients.
+    Trend {
+        /// The archive.
+        archive: PathBuf,
+        /// Only these channels (repeatable).
+        #[arg(long = "channel")]
+        channels: Vec<String>,
+        /// Segments starting at or after this time (RFC 3339, or integer ns since the epoch).
+        #[arg(long)]
+        from: Option<String>,
+        /// Segments starting before this time (RFC 3339, or integer ns since the epoch).
+        #[arg(long)]
+        to: Option<String>,
+        /// Harmonics to report (comma-separated; 1 = the fundamental).
+        #[arg(long, value_delimiter = ',', default_values_t = [1usize, 2, 3, 5, 7])]
+        harmonics: Vec<usize>,
+        /// Print CSV on stdout instead of the table.
+        #[arg(long, conflicts_with = "json")]
+        csv: bool,
+        /// Print JSON on stdout instead of the table.
+        #[arg(long)]
+        json: bool,
+        /// Also write the trend as a Parquet file.
+        #[arg(long)]
+        parquet: Option<PathBuf>,
+        /// Also write an SVG chart (one panel per quantity).
+        #[arg(long)]
+        svg: Option<PathBuf>,
+    },
     /// Run a pipeline file (pipelines/*.toml).
     Run {
         /// The pipeline file.
@@ -88,7 +124,74 @@ enum Command {
         /// Print the run report as JSON on stdout.
         #[arg(long)]
         json: bool,
+        /// Also write the run's report as one self-contained HTML page.
+        #[arg(long)]
+        report: Option<PathBuf>,
     },
+    /// Write one self-contained HTML page about archives: per channel ratio, bytes, error
+    /// over budget, order and fundamental over time, events and guards.
+    Report {
+        /// The archives.
+        #[arg(required = true)]
+        archives: Vec<PathBuf>,
+        /// The HTML page to write.
+        #[arg(long)]
+        out: PathBuf,
+    },
+}
+
+#[derive(Args)]
+struct SurveyArgs {
+    /// The Parquet source.
+    source: PathBuf,
+    /// Only these channels (comma-separated).
+    #[arg(long, value_delimiter = ',')]
+    channels: Option<Vec<String>>,
+    /// Fundamental frequency in Hz (used as is, no tracking).
+    #[arg(long, conflicts_with = "fundamental")]
+    fundamental_hz: Option<f64>,
+    /// `auto` (estimate and track; the default) or `none` (fixed-length segments).
+    #[arg(long)]
+    fundamental: Option<String>,
+    /// Source layout (default: detected).
+    #[arg(long, value_enum)]
+    layout: Option<Layout>,
+    /// Time column (default `time`).
+    #[arg(long)]
+    time_column: Option<String>,
+    /// Channel column, long layout (default `channel`).
+    #[arg(long)]
+    channel_column: Option<String>,
+    /// Value column, long layout (default `value`).
+    #[arg(long)]
+    value_column: Option<String>,
+    /// Sample rate in Hz (default: from the timestamps' median step).
+    #[arg(long)]
+    sample_rate_hz: Option<f64>,
+    /// Print JSON on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
+    /// Also write an SVG chart of the curves, noise floors and recommendations marked.
+    #[arg(long)]
+    svg: Option<PathBuf>,
+}
+
+impl SurveyArgs {
+    fn options(&self) -> EncodeOptions {
+        EncodeOptions {
+            fundamental: self
+                .fundamental_hz
+                .map(|f| f.to_string())
+                .or_else(|| self.fundamental.clone()),
+            layout: self.layout,
+            time_column: self.time_column.clone(),
+            channel_column: self.channel_column.clone(),
+            value_column: self.value_column.clone(),
+            channels: self.channels.clone(),
+            sample_rate_hz: self.sample_rate_hz,
+            ..Default::default()
+        }
+    }
 }
 
 #[derive(Args)]
@@ -107,6 +210,10 @@ struct EncodeArgs {
     /// Absolute floor under a relative budget (channel units; default 0).
     #[arg(long, requires = "budget_rel", allow_negative_numbers = true)]
     budget_floor: Option<f64>,
+    /// `survey`: each channel's budget is what `cyclarc survey` recommends for it, measured
+    /// on this source first and recorded in the archive.
+    #[arg(long, value_enum, conflicts_with_all = ["budget_rms", "budget_rel"])]
+    budget: Option<BudgetChoice>,
     /// Peak guard: no decoded sample may differ from its source value by more than this
     /// (channel units); samples that would are corrected, and `verify` checks it.
     #[arg(long, allow_negative_numbers = true)]
@@ -233,6 +340,7 @@ impl EncodeArgs {
             budget_rms: self.budget_rms,
             budget_rel: self.budget_rel,
             budget_floor: self.budget_floor,
+            budget: self.budget,
             peak_max: self.peak_max,
             protect: self.protect()?,
             events: self.events.then_some(true),
@@ -271,6 +379,17 @@ fn stdout(text: &str) {
     use std::io::Write;
     let mut o = std::io::stdout().lock();
     let _ = o.write_all(text.as_bytes()).and_then(|()| o.flush());
+}
+
+/// Write a text output (SVG, HTML) atomically.
+fn write_text(path: &std::path::Path, text: &str) -> Result<(), Error> {
+    use std::io::Write;
+    cyclarc::fsio::write_atomic(path, |f| {
+        f.write_all(text.as_bytes()).map_err(|e| Error::Write {
+            file: path.to_path_buf(),
+            source: e,
+        })
+    })
 }
 
 fn print_json<T: serde::Serialize>(v: &T) {
@@ -353,8 +472,73 @@ fn run(cli: Cli) -> Result<i32, Error> {
             }
             Ok(0)
         }
-        Command::Run { pipeline, json } => {
+        Command::Survey(a) => {
+            let settings = a.options().resolve()?;
+            let r = survey(&a.source, &settings)?;
+            if let Some(p) = &a.svg {
+                write_text(p, &plot::panels_svg(&report::survey_panels(&r)))?;
+            }
+            if a.json {
+                print_json(&r);
+            } else {
+                stdout(&report::survey_text(&r));
+            }
+            Ok(0)
+        }
+        Command::Trend {
+            archive,
+            channels,
+            from,
+            to,
+            harmonics,
+            csv,
+            json,
+            parquet,
+            svg,
+        } => {
+            let query = TrendQuery {
+                channels,
+                from: from.map(|s| parse_time(&s, "from")).transpose()?,
+                to: to.map(|s| parse_time(&s, "to")).transpose()?,
+                harmonics,
+            };
+            let a = Archive::open(&archive, DigestPolicy::Skip)?;
+            let r = trend(&a, &query, RealFft::shared())?;
+            if let Some(p) = &parquet {
+                cyclarc::source::writeback::write_table(p, trend_columns(&r))?;
+            }
+            if let Some(p) = &svg {
+                write_text(p, &plot::panels_svg(&report::trend_panels(&r)))?;
+            }
+            if json {
+                print_json(&r);
+            } else if csv {
+                stdout(&report::trend_csv(&r));
+            } else {
+                stdout(&report::trend_text(&r));
+            }
+            Ok(0)
+        }
+        Command::Report { archives, out } => {
+            let title = if archives.len() == 1 {
+                archives[0].display().to_string()
+            } else {
+                format!("{} archives", archives.len())
+            };
+            write_text(&out, &cyclarc::html::page(&title, &archives, &[])?)?;
+            eprintln!("report written to {}", out.display());
+            Ok(0)
+        }
+        Command::Run {
+            pipeline,
+            json,
+            report: page,
+        } => {
             let r = pipeline::run(&pipeline, &control)?;
+            if let Some(p) = &page {
+                write_text(p, &cyclarc::html::run_page(&r)?)?;
+                eprintln!("report written to {}", p.display());
+            }
             if json {
                 print_json(&r);
             }

@@ -279,6 +279,15 @@ pub const DEFAULT_BEARING_SLIP: f64 = 0.02;
 /// Default half-width of rotor-bar sideband bands (Hz).
 pub const DEFAULT_SIDEBAND_HALF_WIDTH_HZ: f64 = 0.5;
 
+/// A budget chosen by a rule rather than given as a number.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, clap::ValueEnum)]
+#[serde(rename_all = "lowercase")]
+pub enum BudgetChoice {
+    /// Each channel's recommendation from [`crate::jobs::survey`], measured on the source
+    /// before it is encoded and recorded in the archive as that channel's budget rule.
+    Survey,
+}
+
 /// The job specification (flags and pipeline files fill this same type).
 #[derive(Debug, Clone, PartialEq, Default, Serialize, Deserialize)]
 #[serde(deny_unknown_fields, default)]
@@ -289,6 +298,9 @@ pub struct EncodeOptions {
     pub budget_rel: Option<f64>,
     /// Floor under a relative budget. Default 0.
     pub budget_floor: Option<f64>,
+    /// `survey`: every channel that no rule in `budgets` matches gets the survey's
+    /// recommended budget for it, as an absolute budget. Default: none (the budget above).
+    pub budget: Option<BudgetChoice>,
     /// Per-channel budgets; the first matching rule wins over the default budget.
     pub budgets: Vec<BudgetRule>,
     /// Peak guard: largest absolute error of any decoded sample (channel units). Default:
@@ -332,6 +344,9 @@ pub struct Settings {
     pub source: Mapping,
     /// Budgets, segmentation and levels, for the codec.
     pub codec: CodecParams,
+    /// The default budget is each channel's survey recommendation: resolved by the encode
+    /// job into one absolute rule per channel (after the user's rules) before it encodes.
+    pub budget_from_survey: bool,
 }
 
 /// The settings as recorded in archives and manifests: one flat record, in a fixed field
@@ -363,6 +378,8 @@ struct SettingsRecord<'a> {
     protection_rules: &'a [(String, Protection)],
     #[serde(skip_serializing_if = "std::ops::Not::not")]
     events: bool,
+    #[serde(skip_serializing_if = "std::ops::Not::not")]
+    budget_from_survey: bool,
 }
 
 impl Serialize for Settings {
@@ -387,6 +404,7 @@ impl Serialize for Settings {
             protection: &c.protection,
             protection_rules: &c.protection_rules,
             events: c.events,
+            budget_from_survey: self.budget_from_survey,
         }
         .serialize(s)
     }
@@ -405,6 +423,7 @@ impl EncodeOptions {
             budget_rms,
             budget_rel,
             budget_floor,
+            budget,
             peak_max,
             protect,
             events,
@@ -419,12 +438,20 @@ impl EncodeOptions {
             zstd_level,
             block_segments
         );
-        // An absolute budget given on top replaces a relative one, and vice versa.
+        // An absolute budget given on top replaces a relative one, and vice versa; a number
+        // replaces a chosen budget, and a chosen budget replaces numbers.
         if over.budget_rms.is_some() {
             o.budget_rel = None;
             o.budget_floor = None;
         } else if over.budget_rel.is_some() {
             o.budget_rms = None;
+        }
+        if over.budget_rms.is_some() || over.budget_rel.is_some() {
+            o.budget = None;
+        } else if over.budget.is_some() {
+            o.budget_rms = None;
+            o.budget_rel = None;
+            o.budget_floor = None;
         }
         o
     }
@@ -436,6 +463,12 @@ impl EncodeOptions {
             rel: self.budget_rel,
             floor: self.budget_floor,
         };
+        if self.budget.is_some() && (self.budget_rms.is_some() || self.budget_rel.is_some()) {
+            return Err(Error::InvalidOption {
+                name: "budget".into(),
+                reason: "give either `survey` or a number (rms or rel), not both".into(),
+            });
+        }
         let budget = spec.resolve("budget-")?.unwrap_or(Budget::Relative {
             fraction: DEFAULT_BUDGET_REL,
             floor: 0.0,
@@ -552,6 +585,7 @@ impl EncodeOptions {
                 protection_rules,
                 events: self.events.unwrap_or(false),
             },
+            budget_from_survey: self.budget == Some(BudgetChoice::Survey),
         })
     }
 }

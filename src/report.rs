@@ -11,7 +11,10 @@ use serde::Serialize;
 
 use crate::archive::schema::{column_class, ColumnClass};
 use crate::archive::{Archive, SegmentInfo};
+use crate::jobs::survey::SurveyReport;
+use crate::jobs::trend::{TrendPoint, TrendReport};
 use crate::jobs::{EncodeSummary, VerifyReport};
+use crate::plot::{Marker, Panel, Series};
 
 /// One channel in `inspect`.
 #[derive(Debug, Clone, Serialize)]
@@ -113,8 +116,6 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
         file_overhead: a.file_bytes.saturating_sub(all),
         total: a.file_bytes,
     };
-    let other = a.file_bytes.saturating_sub(payload) as f64;
-    let total_rows = a.rows.len().max(1) as f64;
     let mut channels = Vec::new();
     for cm in &a.meta.channels {
         let rows: Vec<_> = a.rows.iter().filter(|r| r.channel == cm.name).collect();
@@ -125,11 +126,7 @@ pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {
         for s in &segs {
             *basis.entry(s.basis.to_string()).or_insert(0) += 1;
         }
-        let pay: u64 = rows
-            .iter()
-            .filter_map(|r| r.payload.as_ref().map(|p| p.len() as u64 + 4))
-            .sum();
-        let bytes = pay + (other * rows.len() as f64 / total_rows).round() as u64;
+        let bytes = a.channel_bytes(&cm.name);
         let samples: u64 = rows.iter().map(|r| r.samples as u64).sum();
         let worst = rows.iter().map(|r| r.budget_use as f64).fold(0.0, f64::max);
         let guarded = cm.peak_max.is_some() || segs.iter().any(|s| s.peak.is_some());
@@ -486,4 +483,261 @@ pub fn verify_text(v: &VerifyReport) -> String {
         s.push_str(&format!("verify: FAIL — {} problem(s)\n", v.findings.len()));
     }
     s
+}
+
+/// A time (ns since the epoch) as UTC RFC 3339 with milliseconds; the integer when out of
+/// range.
+pub fn utc(ns: i64) -> String {
+    arrow::temporal_conversions::timestamp_ns_to_datetime(ns).map_or(ns.to_string(), |t| {
+        t.format("%Y-%m-%dT%H:%M:%S%.3fZ").to_string()
+    })
+}
+
+/// `trend`'s table: one line per segment.
+pub fn trend_text(r: &TrendReport) -> String {
+    let mut header = vec![
+        "channel".to_string(),
+        "time (UTC)".into(),
+        "f0 (Hz)".into(),
+        "RMS".into(),
+        "THD (%)".into(),
+    ];
+    header.extend(r.harmonics.iter().map(|h| format!("h{h} amp")));
+    let rows: Vec<Vec<String>> = r
+        .points
+        .iter()
+        .map(|p| {
+            let mut row = vec![
+                p.channel.clone(),
+                utc(p.start_ns),
+                format!("{:.3}", p.fundamental_hz),
+                format!("{:.4}", p.rms),
+                p.thd.map_or("-".into(), |t| format!("{:.2}", t * 100.0)),
+            ];
+            row.extend(r.harmonics.iter().map(|&h| {
+                p.harmonics
+                    .iter()
+                    .find(|q| q.harmonic == h)
+                    .map_or("-".into(), |q| format!("{:.4}", q.amplitude))
+            }));
+            row
+        })
+        .collect();
+    let header: Vec<&str> = header.iter().map(String::as_str).collect();
+    let mut s = table(&header, &rows);
+    if r.skipped_segments > 0 {
+        s.push_str(&format!(
+            "{} segment(s) without harmonics (time-domain, lossless or not periodic) left out\n",
+            r.skipped_segments
+        ));
+    }
+    s
+}
+
+/// `trend --csv`: the columns of [`crate::jobs::trend::trend_columns`], with the time in
+/// RFC 3339 and in ns.
+pub fn trend_csv(r: &TrendReport) -> String {
+    let mut w = csv::Writer::from_writer(Vec::new());
+    let mut header = vec![
+        "channel".to_string(),
+        "time".into(),
+        "time_ns".into(),
+        "samples".into(),
+        "basis".into(),
+        "fundamental_hz".into(),
+        "rms".into(),
+        "thd".into(),
+    ];
+    for h in &r.harmonics {
+        header.push(format!("h{h}_amplitude"));
+        header.push(format!("h{h}_phase"));
+    }
+    // Writing CSV into memory cannot fail.
+    let _ = w.write_record(&header);
+    for p in &r.points {
+        let mut rec = vec![
+            p.channel.clone(),
+            utc(p.start_ns),
+            p.start_ns.to_string(),
+            p.samples.to_string(),
+            p.basis.to_string(),
+            p.fundamental_hz.to_string(),
+            p.rms.to_string(),
+            p.thd.map_or(String::new(), |t| t.to_string()),
+        ];
+        for &h in &r.harmonics {
+            match p.harmonics.iter().find(|q| q.harmonic == h) {
+                Some(q) => {
+                    rec.push(q.amplitude.to_string());
+                    rec.push(q.phase.to_string());
+                }
+                None => rec.extend([String::new(), String::new()]),
+            }
+        }
+        let _ = w.write_record(&rec);
+    }
+    String::from_utf8(w.into_inner().unwrap_or_default()).unwrap_or_default()
+}
+
+/// `trend --svg`: one panel per quantity (fundamental, RMS, THD, each harmonic's
+/// amplitude), one line per channel, time in hours from the first point on x.
+pub fn trend_panels(r: &TrendReport) -> Vec<Panel> {
+    let t0 = r.points.iter().map(|p| p.start_ns).min().unwrap_or(0);
+    let hours = |ns: i64| (ns - t0) as f64 / 3.6e12;
+    let mut channels: Vec<&str> = Vec::new();
+    for p in &r.points {
+        if !channels.contains(&p.channel.as_str()) {
+            channels.push(&p.channel);
+        }
+    }
+    let unit_list = "channel units";
+    let x_label = format!("time since {} (h)", utc(t0));
+    let panel =
+        |title: String, y_label: String, value: &dyn Fn(&TrendPoint) -> Option<f64>| Panel {
+            title,
+            x_label: x_label.clone(),
+            y_label,
+            log_x: false,
+            log_y: false,
+            series: channels
+                .iter()
+                .map(|c| Series {
+                    name: c.to_string(),
+                    points: r
+                        .points
+                        .iter()
+                        .filter(|p| p.channel == *c)
+                        .filter_map(|p| value(p).map(|v| (hours(p.start_ns), v)))
+                        .collect(),
+                })
+                .collect(),
+            markers: Vec::new(),
+        };
+    let mut out = vec![
+        panel("Fundamental".into(), "frequency (Hz)".into(), &|p| {
+            Some(p.fundamental_hz)
+        }),
+        panel("RMS".into(), format!("RMS ({unit_list})"), &|p| Some(p.rms)),
+        panel("THD (IEEE 519)".into(), "THD (%)".into(), &|p| {
+            p.thd.map(|t| t * 100.0)
+        }),
+    ];
+    for &h in &r.harmonics {
+        out.push(panel(
+            format!("Harmonic {h}"),
+            format!("peak amplitude ({unit_list})"),
+            &move |p| {
+                p.harmonics
+                    .iter()
+                    .find(|q| q.harmonic == h)
+                    .map(|q| q.amplitude)
+            },
+        ));
+    }
+    out
+}
+
+/// `survey`'s text: per channel the floor, the recommendation and what it keeps, then the
+/// curves.
+pub fn survey_text(r: &SurveyReport) -> String {
+    let g = |v: f64| format!("{v:.4}");
+    let rows: Vec<Vec<String>> = r
+        .channels
+        .iter()
+        .map(|c| {
+            vec![
+                c.channel.clone(),
+                g(c.rms),
+                g(c.noise_rms),
+                c.knee_budget_rms.map_or("-".into(), g),
+                g(c.recommended_budget_rms),
+                format!("{:.1}", c.recommended_ratio),
+                c.keeps
+                    .harmonics_up_to
+                    .map_or("-".into(), |h| h.to_string()),
+                match (c.keeps.thd_source, c.keeps.thd_archive) {
+                    (Some(a), Some(b)) => format!("{:.2} → {:.2}", a * 100.0, b * 100.0),
+                    _ => "-".into(),
+                },
+                if c.sampled_windows > 1 {
+                    format!("{} in {} windows", c.sampled_samples, c.sampled_windows)
+                } else {
+                    format!("all {}", c.sampled_samples)
+                },
+            ]
+        })
+        .collect();
+    let mut s = format!("survey of {}\n\n", r.source);
+    s.push_str(&table(
+        &[
+            "channel",
+            "RMS",
+            "noise",
+            "knee",
+            "recommended",
+            "ratio",
+            "harmonics",
+            "THD % src → arc",
+            "samples measured",
+        ],
+        &rows,
+    ));
+    if let Some(c) = r.channels.first() {
+        s.push_str(&format!(
+            "\nnoise: {}; recommended: {}\n",
+            c.noise_estimator, c.rule
+        ));
+    }
+    for c in &r.channels {
+        s.push_str(&format!(
+            "\n{}: ratio against budget (RMS, channel units)\n",
+            c.channel
+        ));
+        let rows: Vec<Vec<String>> = c
+            .curve
+            .iter()
+            .map(|p| {
+                vec![
+                    g(p.budget_rms),
+                    format!("{:.2}", p.budget_rms / c.noise_rms.max(f64::MIN_POSITIVE)),
+                    format!("{:.1}", p.ratio),
+                    bytes(p.archive_bytes.round() as u64),
+                ]
+            })
+            .collect();
+        s.push_str(&table(&["budget", "× noise", "ratio", "bytes"], &rows));
+    }
+    s
+}
+
+/// `survey --svg`: one panel per channel, ratio against budget on log axes, the noise floor
+/// and the recommendation marked.
+pub fn survey_panels(r: &SurveyReport) -> Vec<Panel> {
+    r.channels
+        .iter()
+        .map(|c| Panel {
+            title: format!("{}: ratio against budget", c.channel),
+            x_label: "budget, RMS (channel units)".into(),
+            y_label: "ratio vs raw f32 (×)".into(),
+            log_x: true,
+            log_y: true,
+            series: vec![Series {
+                name: "estimated ratio".into(),
+                points: c.curve.iter().map(|p| (p.budget_rms, p.ratio)).collect(),
+            }],
+            markers: [
+                (c.noise_rms > 0.0).then(|| Marker {
+                    x: c.noise_rms,
+                    label: format!("noise floor {:.4}", c.noise_rms),
+                }),
+                Some(Marker {
+                    x: c.recommended_budget_rms,
+                    label: format!("recommended {:.4}", c.recommended_budget_rms),
+                }),
+            ]
+            .into_iter()
+            .flatten()
+            .collect(),
+        })
+        .collect()
 }

@@ -75,6 +75,34 @@ pub fn digest_mismatch(path: &Path) -> String {
 }
 
 impl Archive {
+    /// Bytes attributed to a channel: its frames and their CRC-32s, plus its share (by rows)
+    /// of every byte outside the payload column, footer included.
+    pub fn channel_bytes(&self, channel: &str) -> u64 {
+        let payload_all: u64 = self
+            .column_bytes
+            .iter()
+            .filter(|(n, _)| {
+                crate::archive::schema::column_class(n)
+                    == Some(crate::archive::schema::ColumnClass::Payload)
+            })
+            .map(|(_, b)| *b)
+            .sum();
+        let other = self.file_bytes.saturating_sub(payload_all) as f64;
+        let total_rows = self.rows.len().max(1) as f64;
+        let rows: Vec<_> = self.rows.iter().filter(|r| r.channel == channel).collect();
+        let pay: u64 = rows
+            .iter()
+            .filter_map(|r| r.payload.as_ref().map(|p| p.len() as u64 + 4))
+            .sum();
+        pay + (other * rows.len() as f64 / total_rows).round() as u64
+    }
+
+    /// Bytes outside every column chunk: the Parquet footer, headers and file metadata.
+    pub fn footer_bytes(&self) -> u64 {
+        let all: u64 = self.column_bytes.iter().map(|(_, b)| *b).sum();
+        self.file_bytes.saturating_sub(all)
+    }
+
     /// Open an archive: the one way in. The digest is checked as `policy` says, then the file
     /// is read; damage in the Parquet structure (the reader's panics included) is
     /// [`Error::Damaged`].

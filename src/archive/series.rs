@@ -157,7 +157,7 @@ pub fn unpack_block(
 
 /// Check a block's checksum, unpack its frame and cross-check it with its rows; returns the
 /// block and the archive row of each of its segments.
-fn read_block(
+pub(crate) fn read_block(
     archive: &Archive,
     rows: std::ops::Range<usize>,
 ) -> Result<(Block, Vec<usize>), String> {

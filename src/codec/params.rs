@@ -64,7 +64,7 @@ impl Budget {
 }
 
 /// The value of the first rule whose glob pattern matches the channel's name.
-fn first_match<'a, T>(rules: &'a [(String, T)], channel: &str) -> Option<&'a T> {
+pub fn first_match<'a, T>(rules: &'a [(String, T)], channel: &str) -> Option<&'a T> {
     rules
         .iter()
         .find(|(p, _)| glob::Pattern::new(p).is_ok_and(|p| p.matches(channel)))

@@ -9,11 +9,13 @@ use crate::error::{Error, Result};
 use crate::fsio::{check_output, digest_path, refuse_same_file};
 pub use crate::jobs::control::{EncodeSummary, JobControl};
 use crate::jobs::stream::{encode_pass, PassOutcome, Reading};
+use crate::jobs::survey::{survey, with_survey_budgets};
 use crate::options::Settings;
 
 /// Encode one Parquet source into an archive. Time-ordered sources stream with bounded
 /// memory; a source whose times go backwards within a channel is read again and sorted in
-/// memory. Both ways give the same bytes.
+/// memory. Both ways give the same bytes. With `budget_from_survey`, the source is surveyed
+/// first ([`crate::jobs::survey`]) and each channel's recommendation becomes its budget rule.
 pub fn encode_file(
     source: &Path,
     out: &Path,
@@ -24,6 +26,13 @@ pub fn encode_file(
     check_output(out)?;
     check_output(&digest_path(out))?;
     let source_meta = SourceMeta::of(source)?;
+    let surveyed;
+    let settings = if settings.budget_from_survey {
+        surveyed = with_survey_budgets(settings, &survey(source, settings)?);
+        &surveyed
+    } else {
+        settings
+    };
     let pass = |reading| encode_pass(source, out, settings, control, &source_meta, reading);
     match pass(Reading::Stream)? {
         PassOutcome::Done(summary) => Ok(summary),

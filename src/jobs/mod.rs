@@ -7,6 +7,8 @@ pub mod decode;
 pub mod encode;
 pub mod pipeline;
 pub mod stream;
+pub mod survey;
+pub mod trend;
 pub mod verify;
 
 pub use decode::{decode_file, DecodeSummary};

@@ -270,3 +270,34 @@ pub fn write_decoded(
         Ok(rows)
     })
 }
+
+/// Write one record batch of named columns to `out` (atomically), zstd-compressed: the
+/// tables of `trend --parquet`. Every column is nullable.
+pub fn write_table(out: &Path, columns: Vec<(String, ArrayRef)>) -> Result<u64> {
+    let perr = |e: String| Error::WriteParquet {
+        file: out.to_path_buf(),
+        reason: e,
+    };
+    let schema = Arc::new(Schema::new(
+        columns
+            .iter()
+            .map(|(n, a)| Field::new(n, a.data_type().clone(), true))
+            .collect::<Vec<_>>(),
+    ));
+    let batch = RecordBatch::try_new(schema.clone(), columns.into_iter().map(|c| c.1).collect())
+        .map_err(|e| perr(e.to_string()))?;
+    let props = WriterProperties::builder()
+        .set_compression(Compression::ZSTD(ZstdLevel::try_new(3).unwrap_or_default()))
+        .build();
+    write_atomic(out, |f| {
+        let file = f.try_clone().map_err(|e| Error::Write {
+            file: out.to_path_buf(),
+            source: e,
+        })?;
+        let mut w =
+            ArrowWriter::try_new(file, schema, Some(props)).map_err(|e| perr(e.to_string()))?;
+        w.write(&batch).map_err(|e| perr(e.to_string()))?;
+        w.close().map_err(|e| perr(e.to_string()))?;
+        Ok(batch.num_rows() as u64)
+    })
+}

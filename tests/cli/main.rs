@@ -12,6 +12,7 @@ mod bad_input;
 mod commands;
 mod crash;
 mod damage;
+mod looking;
 mod pipeline;
 mod promises;
 mod roundtrip;
