@@ -20,10 +20,10 @@ use crate::report::{bytes, inspect, utc, ChannelInspect};
 /// Bins of the error-over-budget histogram, over [0, 1].
 const USE_BINS: usize = 10;
 
-const STYLE: &str = "body{font-family:sans-serif;margin:24px auto;max-width:960px;color:#222}\
+const STYLE: &str = "body{font-family:sans-serif;margin:24px auto;max-width:1100px;color:#222}\
 h1{font-size:22px;margin-bottom:4px}h2{font-size:18px;margin-top:32px;border-bottom:1px solid #ccc}\
 h3{font-size:15px;margin:18px 0 4px}table{border-collapse:collapse;font-size:13px;width:100%}\
-th,td{padding:4px 8px;border-bottom:1px solid #e4e4e4;text-align:right}\
+th,td{padding:4px 8px;border-bottom:1px solid #e4e4e4;text-align:right}td.n{white-space:nowrap}\
 th:first-child,td:first-child,th:nth-child(2),td:nth-child(2){text-align:left}\
 th{cursor:pointer;background:#f3f3f3;user-select:none}th:hover{background:#e6eef6}\
 .bad{color:#d55e00;font-weight:bold}.note{color:#555;font-size:13px}\
@@ -140,7 +140,10 @@ fn summary_table(h: &mut String, opened: &[Opened]) {
             .archive
             .path
             .file_name()
-            .map(|n| n.to_string_lossy().into_owned())
+            .map(|n| {
+                let n = n.to_string_lossy();
+                n.strip_suffix(".cyclarc.parquet").unwrap_or(&n).to_string()
+            })
             .unwrap_or_default();
         for c in &o.channels {
             let worst_class = if c.worst_error_over_budget > 1.0 {
@@ -150,8 +153,8 @@ fn summary_table(h: &mut String, opened: &[Opened]) {
             };
             let _ = write!(
                 h,
-                "<tr><td>{a}</td><td>{ch}</td><td>{s}</td><td data-v=\"{b}\">{bt}</td>\
-                 <td>{r:.1}</td><td{wc}>{w:.3}</td><td>{ord}</td><td>{f}</td><td>{e}</td><td>{g}</td></tr>",
+                "<tr><td>{a}</td><td>{ch}</td><td class=\"n\">{s}</td><td class=\"n\" data-v=\"{b}\">{bt}</td>\
+                 <td class=\"n\">{r:.1}</td><td{wc}>{w:.3}</td><td class=\"n\">{ord}</td><td>{f}</td><td>{e}</td><td>{g}</td></tr>",
                 a = esc(&name),
                 ch = esc(&c.channel),
                 s = c.samples,
@@ -227,6 +230,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
                     .collect(),
             }],
             markers: Vec::new(),
+            bars: false,
         },
         Panel {
             title: "Truncation order of each Fourier segment".into(),
@@ -242,6 +246,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
                     .collect(),
             }],
             markers: Vec::new(),
+            bars: false,
         },
         Panel {
             title: "Error over budget: rows per bin (the last bin is above 1)".into(),
@@ -258,6 +263,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
                     .collect(),
             }],
             markers: Vec::new(),
+            bars: true,
         },
     ];
     if segs.iter().any(|s| s.corrected.is_some()) {
@@ -275,6 +281,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
                     .collect(),
             }],
             markers: Vec::new(),
+            bars: false,
         });
     }
     h.push_str(&panels_svg(&panels));

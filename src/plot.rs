@@ -54,6 +54,8 @@ pub struct Panel {
     pub series: Vec<Series>,
     /// Vertical markers.
     pub markers: Vec<Marker>,
+    /// Draw the series as bars (a histogram; the points are bin centres) rather than lines.
+    pub bars: bool,
 }
 
 /// Width of a panel (px).
@@ -98,6 +100,34 @@ fn range(values: impl Iterator<Item = f64>, log: bool) -> (f64, f64) {
     }
 }
 
+/// Tick labels for an axis over `lo … hi`: on a linear axis enough decimals to tell ticks a
+/// tenth of the range apart, on a log axis four significant digits; no trailing zeros,
+/// scientific outside 10⁻³ … 10⁶.
+fn ticks(lo: f64, hi: f64, log: bool) -> impl Fn(&f64) -> String {
+    let span = (hi - lo).abs();
+    let decimals = if log || !(span > 0.0) {
+        None
+    } else {
+        Some((1.0 - (span / 10.0).log10().floor()).clamp(0.0, 9.0) as usize)
+    };
+    move |&v: &f64| {
+        let a = v.abs();
+        if v == 0.0 {
+            return "0".into();
+        }
+        if !(1e-3..1e6).contains(&a) {
+            return format!("{v:.2e}");
+        }
+        let d = decimals.unwrap_or((3 - a.log10().floor() as i32).clamp(0, 9) as usize);
+        let s = format!("{v:.d$}");
+        if s.contains('.') {
+            s.trim_end_matches('0').trim_end_matches('.').to_string()
+        } else {
+            s
+        }
+    }
+}
+
 type DrawResult = Result<(), Box<dyn std::error::Error>>;
 
 fn draw(area: &DrawingArea<SVGBackend, Shift>, p: &Panel) -> DrawResult {
@@ -109,6 +139,7 @@ fn draw(area: &DrawingArea<SVGBackend, Shift>, p: &Panel) -> DrawResult {
     let ys = p.series.iter().flat_map(|s| s.points.iter().map(|q| q.1));
     let (x0, x1) = range(xs, p.log_x);
     let (y0, y1) = range(ys, p.log_y);
+    let (x_tick, y_tick) = (ticks(x0, x1, p.log_x), ticks(y0, y1, p.log_y));
     let mut b = ChartBuilder::on(area);
     b.caption(&p.title, ("sans-serif", 17))
         .margin(10)
@@ -119,8 +150,12 @@ fn draw(area: &DrawingArea<SVGBackend, Shift>, p: &Panel) -> DrawResult {
             let mut chart = $chart;
             chart
                 .configure_mesh()
-                .light_line_style(RGBColor(235, 235, 235))
-                .bold_line_style(RGBColor(210, 210, 210))
+                .light_line_style(TRANSPARENT)
+                .bold_line_style(RGBColor(225, 225, 225))
+                .x_labels(8)
+                .y_labels(6)
+                .x_label_formatter(&x_tick)
+                .y_label_formatter(&y_tick)
                 .x_desc(&p.x_label)
                 .y_desc(&p.y_label)
                 .label_style(("sans-serif", 12))
@@ -134,6 +169,24 @@ fn draw(area: &DrawingArea<SVGBackend, Shift>, p: &Panel) -> DrawResult {
                     .filter(|q| q.0.is_finite() && q.1.is_finite())
                     .filter(|q| (!p.log_x || q.0 > 0.0) && (!p.log_y || q.1 > 0.0))
                     .collect();
+                if p.bars {
+                    // Bins of equal width, centred on the points.
+                    let half = pts
+                        .windows(2)
+                        .map(|w| (w[1].0 - w[0].0) / 2.0)
+                        .fold(f64::INFINITY, f64::min);
+                    let half = if half.is_finite() { half * 0.9 } else { 0.5 };
+                    let base = if p.log_y { y0 } else { 0.0f64.max(y0) };
+                    chart
+                        .draw_series(pts.iter().map(|&(x, y)| {
+                            Rectangle::new([(x - half, base), (x + half, y)], c.filled())
+                        }))?
+                        .label(s.name.clone())
+                        .legend(move |(x, y)| {
+                            Rectangle::new([(x, y - 5), (x + 12, y + 5)], c.filled())
+                        });
+                    continue;
+                }
                 chart
                     .draw_series(LineSeries::new(pts.clone(), c.stroke_width(2)))?
                     .label(s.name.clone())

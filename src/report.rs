@@ -580,10 +580,17 @@ pub fn trend_csv(r: &TrendReport) -> String {
 }
 
 /// `trend --svg`: one panel per quantity (fundamental, RMS, THD, each harmonic's
-/// amplitude), one line per channel, time in hours from the first point on x.
+/// amplitude), one line per channel, time from the first point on x (in s, min or h).
 pub fn trend_panels(r: &TrendReport) -> Vec<Panel> {
     let t0 = r.points.iter().map(|p| p.start_ns).min().unwrap_or(0);
-    let hours = |ns: i64| (ns - t0) as f64 / 3.6e12;
+    let t1 = r.points.iter().map(|p| p.start_ns).max().unwrap_or(0);
+    // Seconds, minutes or hours on x, whichever keeps the span's numbers readable.
+    let (unit_ns, unit) = match (t1 - t0) as f64 / 1e9 {
+        s if s < 300.0 => (1e9, "s"),
+        s if s < 3.0 * 3600.0 => (60e9, "min"),
+        _ => (3.6e12, "h"),
+    };
+    let since = |ns: i64| (ns - t0) as f64 / unit_ns;
     let mut channels: Vec<&str> = Vec::new();
     for p in &r.points {
         if !channels.contains(&p.channel.as_str()) {
@@ -591,7 +598,7 @@ pub fn trend_panels(r: &TrendReport) -> Vec<Panel> {
         }
     }
     let unit_list = "channel units";
-    let x_label = format!("time since {} (h)", utc(t0));
+    let x_label = format!("time since {} ({unit})", utc(t0));
     let panel =
         |title: String, y_label: String, value: &dyn Fn(&TrendPoint) -> Option<f64>| Panel {
             title,
@@ -607,11 +614,12 @@ pub fn trend_panels(r: &TrendReport) -> Vec<Panel> {
                         .points
                         .iter()
                         .filter(|p| p.channel == *c)
-                        .filter_map(|p| value(p).map(|v| (hours(p.start_ns), v)))
+                        .filter_map(|p| value(p).map(|v| (since(p.start_ns), v)))
                         .collect(),
                 })
                 .collect(),
             markers: Vec::new(),
+            bars: false,
         };
     let mut out = vec![
         panel("Fundamental".into(), "frequency (Hz)".into(), &|p| {
@@ -738,6 +746,7 @@ pub fn survey_panels(r: &SurveyReport) -> Vec<Panel> {
             .into_iter()
             .flatten()
             .collect(),
+            bars: false,
         })
         .collect()
 }
