@@ -231,22 +231,33 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
             }],
             markers: Vec::new(),
             bars: false,
+            points_only: false,
         },
         Panel {
-            title: "Truncation order of each Fourier segment".into(),
+            title: "Basis and order of each segment (time-domain and lossless segments at 0)"
+                .into(),
             x_label: x_label.clone(),
             y_label: "order L (bins kept)".into(),
             log_x: false,
             log_y: false,
-            series: vec![Series {
-                name: "order".into(),
-                points: segs
-                    .iter()
-                    .filter_map(|s| Some((secs(s.start_ns), s.order? as f64)))
-                    .collect(),
-            }],
+            series: {
+                // One series of points per basis, in the order bases first appear.
+                let mut by_basis: Vec<Series> = Vec::new();
+                for s in &segs {
+                    let point = (secs(s.start_ns), s.order.map_or(0.0, f64::from));
+                    match by_basis.iter_mut().find(|b| b.name == s.basis) {
+                        Some(b) => b.points.push(point),
+                        None => by_basis.push(Series {
+                            name: s.basis.to_string(),
+                            points: vec![point],
+                        }),
+                    }
+                }
+                by_basis
+            },
             markers: Vec::new(),
             bars: false,
+            points_only: true,
         },
         Panel {
             title: "Error over budget: rows per bin (the last bin is above 1)".into(),
@@ -264,6 +275,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
             }],
             markers: Vec::new(),
             bars: true,
+            points_only: false,
         },
     ];
     if segs.iter().any(|s| s.corrected.is_some()) {
@@ -282,6 +294,7 @@ fn channel_section(h: &mut String, o: &Opened, c: &ChannelInspect) {
             }],
             markers: Vec::new(),
             bars: false,
+            points_only: false,
         });
     }
     h.push_str(&panels_svg(&panels));

@@ -56,6 +56,8 @@ pub struct Panel {
     pub markers: Vec<Marker>,
     /// Draw the series as bars (a histogram; the points are bin centres) rather than lines.
     pub bars: bool,
+    /// Draw the series as points only (categories, scattered values) rather than lines.
+    pub points_only: bool,
 }
 
 /// Width of a panel (px).
@@ -185,6 +187,13 @@ fn draw(area: &DrawingArea<SVGBackend, Shift>, p: &Panel) -> DrawResult {
                         .legend(move |(x, y)| {
                             Rectangle::new([(x, y - 5), (x + 12, y + 5)], c.filled())
                         });
+                    continue;
+                }
+                if p.points_only {
+                    chart
+                        .draw_series(pts.iter().map(|&q| Circle::new(q, 3, c.filled())))?
+                        .label(s.name.clone())
+                        .legend(move |(x, y)| Circle::new((x + 6, y), 3, c.filled()));
                     continue;
                 }
                 chart

@@ -620,6 +620,7 @@ pub fn trend_panels(r: &TrendReport) -> Vec<Panel> {
                 .collect(),
             markers: Vec::new(),
             bars: false,
+            points_only: false,
         };
     let mut out = vec![
         panel("Fundamental".into(), "frequency (Hz)".into(), &|p| {
@@ -747,6 +748,7 @@ pub fn survey_panels(r: &SurveyReport) -> Vec<Panel> {
             .flatten()
             .collect(),
             bars: false,
+            points_only: false,
         })
         .collect()
 }
