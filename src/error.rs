@@ -211,16 +211,50 @@ pub enum Error {
     /// The run was interrupted (SIGTERM or SIGINT) and stopped cleanly.
     #[error("interrupted: stopped before finishing; nothing partial was published")]
     Interrupted,
+    /// Object storage (or a local folder reached through it) failed.
+    #[error("{location}: {reason}{}", if *retryable { " (temporary: retry)" } else { "" })]
+    Storage {
+        /// The path or URL.
+        location: String,
+        /// What the store said.
+        reason: String,
+        /// Whether retrying may help (network, throttling, timeouts) or not (a missing
+        /// object, a refused credential).
+        retryable: bool,
+    },
+    /// A plan, its parts or its manifest are not what they should be.
+    #[error("{plan}: {reason}")]
+    Plan {
+        /// The plan.
+        plan: String,
+        /// What is wrong.
+        reason: String,
+    },
+    /// Shards of a plan have no verified part yet.
+    #[error("{plan}: {} shard(s) missing: {}", missing.len(), missing.join(", "))]
+    ShardsMissing {
+        /// The plan.
+        plan: String,
+        /// Ids of the missing shards.
+        missing: Vec<String>,
+    },
 }
+
+/// Exit code of a temporary failure that a scheduler should retry (`EX_TEMPFAIL` of BSD's
+/// sysexits.h).
+pub const EXIT_RETRY: i32 = 75;
 
 impl Error {
     /// The process exit code for this error (documented in the README).
     pub fn exit_code(&self) -> i32 {
         match self {
-            Error::Damaged { .. } | Error::Unverified { .. } => 1,
+            Error::Damaged { .. } | Error::Unverified { .. } | Error::ShardsMissing { .. } => 1,
             Error::Codec { source, .. } => source.exit_code(),
             Error::Write { .. } | Error::WriteParquet { .. } => 3,
             Error::Interrupted => 4,
+            Error::Storage {
+                retryable: true, ..
+            } => EXIT_RETRY,
             _ => 2,
         }
     }

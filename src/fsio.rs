@@ -36,6 +36,11 @@ pub fn sha256_file(path: &Path) -> Result<(String, u64)> {
     Ok((hex(&h.finalize()), total))
 }
 
+/// SHA-256 (hex) of bytes in memory.
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    hex(&Sha256::digest(bytes))
+}
+
 fn hex(b: &[u8]) -> String {
     b.iter().map(|x| format!("{x:02x}")).collect()
 }

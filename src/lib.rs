@@ -119,6 +119,7 @@ pub mod report;
 pub mod signal;
 pub mod source;
 pub mod stop;
+pub mod store;
 
 pub use archive::{Archive, DigestPolicy};
 pub use error::{Error, Result};

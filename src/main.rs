@@ -9,8 +9,9 @@ use clap::{Args, Parser, Subcommand};
 
 use cyclarc::archive::segment_list;
 use cyclarc::jobs::pipeline;
+use cyclarc::jobs::plan::{self, is_plan, Selection, ShardOutcome, DEFAULT_SHARD_BYTES};
 use cyclarc::jobs::survey::survey;
-use cyclarc::jobs::trend::{trend, trend_columns, TrendQuery};
+use cyclarc::jobs::trend::{trend, trend_columns, trend_union, TrendQuery};
 use cyclarc::options::{
     BearingSpec, BudgetChoice, EncodeOptions, Layout, ProtectSpec, RotorBarSpec,
 };
@@ -37,7 +38,7 @@ enum Command {
     Encode(Box<EncodeArgs>),
     /// Decode an archive back to Parquet in the source's layout.
     Decode {
-        /// The archive.
+        /// The archive, or a committed plan (PLAN.json: its parts as one archive).
         archive: PathBuf,
         /// Output Parquet file.
         #[arg(long)]
@@ -62,18 +63,18 @@ enum Command {
     },
     /// Check an archive against its source: every segment within budget, every checksum good.
     Verify {
-        /// The archive.
+        /// The archive, or a committed plan (PLAN.json: each part against its own source).
         archive: PathBuf,
-        /// The source it was made from.
+        /// The source it was made from (not for a plan, which names its sources).
         #[arg(long)]
-        source: PathBuf,
+        source: Option<PathBuf>,
         /// Print the report as JSON on stdout.
         #[arg(long)]
         json: bool,
     },
     /// Show what an archive holds, per channel.
     Inspect {
-        /// The archive.
+        /// The archive, or a committed plan (PLAN.json: its parts as one archive).
         archive: PathBuf,
         /// Print as JSON on stdout.
         #[arg(long)]
@@ -90,7 +91,7 @@ enum Command {
     Survey(Box<SurveyArgs>),
     /// Harmonics, THD, RMS and the fundamental over time, from the stored coefficients.
     Trend {
-        /// The archive.
+        /// The archive, or a committed plan (PLAN.json: its parts as one archive).
         archive: PathBuf,
         /// Only these channels (repeatable).
         #[arg(long = "channel")]
@@ -117,10 +118,38 @@ enum Command {
         #[arg(long)]
         svg: Option<PathBuf>,
     },
-    /// Run a pipeline file (pipelines/*.toml).
+    /// Cut a job's sources into shards: reads their footers only, writes PLAN (a path or URL).
+    Plan {
+        /// The job file (pipelines/*.toml).
+        job: PathBuf,
+        /// Where to write the plan (path or URL; create-only: an identical plan is accepted).
+        #[arg(long)]
+        out: String,
+        /// Raw bytes (4 per sample) a shard aims at.
+        #[arg(long, default_value_t = DEFAULT_SHARD_BYTES)]
+        shard_bytes: u64,
+        /// Print a JSON summary on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Check every part of a plan against its digest and write the manifest, once.
+    Commit {
+        /// The plan (path or URL).
+        plan: String,
+        /// Print a JSON summary on stdout.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Run a pipeline file (pipelines/*.toml), or shards of a plan (PLAN.json).
     Run {
-        /// The pipeline file.
+        /// The pipeline file, or a plan (path or URL).
         pipeline: PathBuf,
+        /// Plans only: do shards I, I+N, I+2N, … (0-based).
+        #[arg(long, conflicts_with = "shard_id")]
+        shard: Option<Selection>,
+        /// Plans only: do the shard with this id.
+        #[arg(long)]
+        shard_id: Option<String>,
         /// Print the run report as JSON on stdout.
         #[arg(long)]
         json: bool,
@@ -381,6 +410,47 @@ fn stdout(text: &str) {
     let _ = o.write_all(text.as_bytes()).and_then(|()| o.flush());
 }
 
+/// The argument as a plan's path or URL, when it names a plan (`*.json`).
+fn plan_arg(p: &std::path::Path) -> Option<String> {
+    let text = p.to_string_lossy().into_owned();
+    is_plan(&text).then_some(text)
+}
+
+/// `verify PLAN`: every part against its own source (fetched when remote).
+fn verify_plan(text: &str, source: Option<&std::path::Path>, json: bool) -> Result<i32, Error> {
+    if source.is_some() {
+        return Err(Error::InvalidOption {
+            name: "source".into(),
+            reason: "a plan names each part's source; give no --source".into(),
+        });
+    }
+    let c = plan::open_committed(text)?;
+    let tmp = tempfile::tempdir().map_err(|e| Error::Write {
+        file: std::env::temp_dir(),
+        source: e,
+    })?;
+    let mut reports = Vec::new();
+    for (shard, part) in &c.parts {
+        let src = cyclarc::store::Location::parse(&shard.source.location)?.fetch(tmp.path())?;
+        let r = cyclarc::verify(part, &src, RealFft::shared())?;
+        if !json {
+            stdout(&format!("shard {}:\n{}", shard.id, report::verify_text(&r)));
+        }
+        reports.push(r);
+    }
+    let pass = reports.iter().all(|r| r.passed());
+    if json {
+        print_json(&reports);
+    } else {
+        stdout(&format!(
+            "{text}: {} part(s), {}\n",
+            reports.len(),
+            if pass { "all pass" } else { "FAIL" }
+        ));
+    }
+    Ok(if pass { 0 } else { 1 })
+}
+
 /// Write a text output (SVG, HTML) atomically.
 fn write_text(path: &std::path::Path, text: &str) -> Result<(), Error> {
     use std::io::Write;
@@ -423,7 +493,20 @@ fn run(cli: Cli) -> Result<i32, Error> {
         } => {
             let from = from.map(|s| parse_time(&s, "from")).transpose()?;
             let to = to.map(|s| parse_time(&s, "to")).transpose()?;
-            let s = decode_file(&archive, &out, &channels, from, to, salvage)?;
+            let s = match plan_arg(&archive) {
+                Some(text) => {
+                    if salvage {
+                        return Err(Error::InvalidOption {
+                            name: "salvage".into(),
+                            reason: "decodes one archive: decode the part it names".into(),
+                        });
+                    }
+                    let c = plan::open_committed(&text)?;
+                    let parts: Vec<PathBuf> = c.parts.iter().map(|p| p.1.clone()).collect();
+                    cyclarc::jobs::decode::decode_parts(&text, &parts, &out, &channels, from, to)?
+                }
+                None => decode_file(&archive, &out, &channels, from, to, salvage)?,
+            };
             for h in &s.holes {
                 eprintln!("cyclarc: {}: hole: {h}", s.archive.display());
             }
@@ -445,6 +528,15 @@ fn run(cli: Cli) -> Result<i32, Error> {
             source,
             json,
         } => {
+            if let Some(text) = plan_arg(&archive) {
+                return verify_plan(&text, source.as_deref(), json);
+            }
+            let Some(source) = source else {
+                return Err(Error::InvalidOption {
+                    name: "source".into(),
+                    reason: "verify needs the source the archive was made from".into(),
+                });
+            };
             let r = cyclarc::verify(&archive, &source, RealFft::shared())?;
             if json {
                 print_json(&r);
@@ -459,12 +551,29 @@ fn run(cli: Cli) -> Result<i32, Error> {
             segments,
             meta,
         } => {
-            let a = Archive::open(&archive, DigestPolicy::Skip)?;
-            if meta {
-                print_json(&a.meta);
-                return Ok(0);
-            }
-            let i = report::inspect(&a, segment_list(&a)?, segments);
+            let i = match plan_arg(&archive) {
+                Some(text) => {
+                    let c = plan::open_committed(&text)?;
+                    if meta {
+                        print_json(&c.plan);
+                        return Ok(0);
+                    }
+                    let mut each = Vec::new();
+                    for (_, p) in &c.parts {
+                        let a = Archive::open(p, DigestPolicy::Skip)?;
+                        each.push(report::inspect(&a, segment_list(&a)?, segments));
+                    }
+                    report::inspect_union(each)
+                }
+                None => {
+                    let a = Archive::open(&archive, DigestPolicy::Skip)?;
+                    if meta {
+                        print_json(&a.meta);
+                        return Ok(0);
+                    }
+                    report::inspect(&a, segment_list(&a)?, segments)
+                }
+            };
             if json {
                 print_json(&i);
             } else {
@@ -502,8 +611,21 @@ fn run(cli: Cli) -> Result<i32, Error> {
                 to: to.map(|s| parse_time(&s, "to")).transpose()?,
                 harmonics,
             };
-            let a = Archive::open(&archive, DigestPolicy::Skip)?;
-            let r = trend(&a, &query, RealFft::shared())?;
+            let r = match plan_arg(&archive) {
+                Some(text) => {
+                    let c = plan::open_committed(&text)?;
+                    let archives = c
+                        .parts
+                        .iter()
+                        .map(|(_, p)| Archive::open(p, DigestPolicy::Skip))
+                        .collect::<Result<Vec<_>, Error>>()?;
+                    trend_union(&text, &archives, &query, RealFft::shared())?
+                }
+                None => {
+                    let a = Archive::open(&archive, DigestPolicy::Skip)?;
+                    trend(&a, &query, RealFft::shared())?
+                }
+            };
             if let Some(p) = &parquet {
                 cyclarc::source::writeback::write_table(p, trend_columns(&r))?;
             }
@@ -529,11 +651,96 @@ fn run(cli: Cli) -> Result<i32, Error> {
             eprintln!("report written to {}", out.display());
             Ok(0)
         }
+        Command::Plan {
+            job,
+            out,
+            shard_bytes,
+            json,
+        } => {
+            let s = plan::make_plan(&job, &out, shard_bytes)?;
+            if json {
+                print_json(&s);
+            } else {
+                eprintln!(
+                    "{}: {} shard(s) of {} source(s), {} raw; plan {}{}; parts go to {}",
+                    job.display(),
+                    s.shards,
+                    s.sources,
+                    report::bytes(s.raw_bytes),
+                    s.hash,
+                    if s.existed {
+                        " (already there, identical)"
+                    } else {
+                        ""
+                    },
+                    s.parts
+                );
+            }
+            Ok(0)
+        }
+        Command::Commit { plan: text, json } => {
+            let c = plan::commit(&text)?;
+            if json {
+                print_json(&c);
+            } else if c.written {
+                eprintln!(
+                    "{text}: committed {} part(s), {}; manifest {}",
+                    c.parts,
+                    report::bytes(c.bytes),
+                    c.manifest
+                );
+            } else {
+                eprintln!(
+                    "{text}: already committed ({}); nothing changed",
+                    c.manifest
+                );
+            }
+            Ok(0)
+        }
         Command::Run {
             pipeline,
+            shard,
+            shard_id,
             json,
             report: page,
         } => {
+            if let Some(text) = plan_arg(&pipeline) {
+                let selection = match (shard, shard_id) {
+                    (Some(s), _) => s,
+                    (None, Some(id)) => Selection::Id(id),
+                    (None, None) => Selection::All,
+                };
+                let r = plan::run_plan(&text, &selection, &control)?;
+                if json {
+                    print_json(&r);
+                }
+                for s in &r.shards {
+                    match s {
+                        ShardOutcome::Done {
+                            id,
+                            bytes,
+                            samples,
+                            seconds,
+                        } => eprintln!(
+                            "shard {id}: {samples} rows → {} in {seconds:.2} s",
+                            report::bytes(*bytes)
+                        ),
+                        ShardOutcome::Present { id } => {
+                            eprintln!("shard {id}: its part is there and matches its digest")
+                        }
+                        ShardOutcome::Failed { id, error, code } => {
+                            eprintln!("cyclarc: shard {id}: {error} (exit {code})")
+                        }
+                    }
+                }
+                return Ok(r.exit_code());
+            }
+            if shard.is_some() || shard_id.is_some() {
+                return Err(Error::InvalidOption {
+                    name: "shard".into(),
+                    reason: "shards are of plans (PLAN.json), not of pipeline files".into(),
+                });
+            }
             let r = pipeline::run(&pipeline, &control)?;
             if let Some(p) = &page {
                 write_text(p, &cyclarc::html::run_page(&r)?)?;

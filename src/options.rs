@@ -380,6 +380,8 @@ struct SettingsRecord<'a> {
     events: bool,
     #[serde(skip_serializing_if = "std::ops::Not::not")]
     budget_from_survey: bool,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    window_ns: Option<(i64, i64)>,
 }
 
 impl Serialize for Settings {
@@ -405,6 +407,7 @@ impl Serialize for Settings {
             protection_rules: &c.protection_rules,
             events: c.events,
             budget_from_survey: self.budget_from_survey,
+            window_ns: m.window,
         }
         .serialize(s)
     }
@@ -570,6 +573,7 @@ impl EncodeOptions {
                 value_column: self.value_column.clone().unwrap_or_else(|| "value".into()),
                 channels: self.channels.clone(),
                 sample_rate_hz: self.sample_rate_hz,
+                window: None,
             },
             codec: CodecParams {
                 budget,

@@ -94,6 +94,95 @@ pub struct Inspect {
     pub segments: Option<Vec<SegmentInfo>>,
 }
 
+/// `inspect` of a committed plan: its parts' results as one archive's — a channel met in
+/// several parts (cut by time, or in several sources) adds up; the byte split adds up; each
+/// source counts once.
+pub fn inspect_union(parts: Vec<Inspect>) -> Inspect {
+    let mut sources: Vec<(String, u64)> = Vec::new();
+    let mut channels: Vec<ChannelInspect> = Vec::new();
+    let mut bytes = ByteSplit {
+        payload: 0,
+        derived: 0,
+        metadata: 0,
+        file_overhead: 0,
+        total: 0,
+    };
+    let mut segments: Option<Vec<SegmentInfo>> = None;
+    let (format, writer) = parts
+        .first()
+        .map(|p| (p.format.clone(), p.writer.clone()))
+        .unwrap_or_default();
+    for p in parts {
+        if !sources.iter().any(|s| s.0 == p.source) {
+            sources.push((p.source.clone(), p.source_bytes));
+        }
+        bytes.payload += p.bytes.payload;
+        bytes.derived += p.bytes.derived;
+        bytes.metadata += p.bytes.metadata;
+        bytes.file_overhead += p.bytes.file_overhead;
+        bytes.total += p.bytes.total;
+        if let Some(list) = p.segments {
+            segments.get_or_insert_with(Vec::new).extend(list);
+        }
+        for c in p.channels {
+            let Some(m) = channels.iter_mut().find(|m| m.channel == c.channel) else {
+                channels.push(c);
+                continue;
+            };
+            // The median order of the merged channel: that of the part with more segments.
+            m.order = match (m.order, c.order) {
+                (Some(a), Some(b)) => Some((
+                    a.0.min(b.0),
+                    if c.segments > m.segments { b.1 } else { a.1 },
+                    a.2.max(b.2),
+                )),
+                (a, b) => a.or(b),
+            };
+            m.segments += c.segments;
+            m.samples += c.samples;
+            for (k, v) in c.basis {
+                *m.basis.entry(k).or_insert(0) += v;
+            }
+            m.bytes += c.bytes;
+            m.ratio_vs_f32 = 4.0 * m.samples as f64 / m.bytes.max(1) as f64;
+            m.worst_error_over_budget = m.worst_error_over_budget.max(c.worst_error_over_budget);
+            if m.fundamental != c.fundamental {
+                m.fundamental = format!("{}; {}", m.fundamental, c.fundamental);
+            }
+            m.peak_max = m.peak_max.or(c.peak_max);
+            m.worst_peak = match (m.worst_peak, c.worst_peak) {
+                (Some(a), Some(b)) => Some(a.max(b)),
+                (a, b) => a.or(b),
+            };
+            m.corrected_samples = match (m.corrected_samples, c.corrected_samples) {
+                (Some(a), Some(b)) => Some(a + b),
+                (a, b) => a.or(b),
+            };
+            m.protected_bands = m.protected_bands.or(c.protected_bands);
+            m.protected_bins = match (m.protected_bins, c.protected_bins) {
+                (Some(a), Some(b)) => Some(a + b),
+                (a, b) => a.or(b),
+            };
+            if let Some(e) = c.events {
+                m.events.get_or_insert_with(Vec::new).extend(e);
+            }
+        }
+    }
+    Inspect {
+        format,
+        writer,
+        source: sources
+            .iter()
+            .map(|s| s.0.as_str())
+            .collect::<Vec<_>>()
+            .join(", "),
+        source_bytes: sources.iter().map(|s| s.1).sum(),
+        channels,
+        bytes,
+        segments,
+    }
+}
+
 /// Build the `inspect` result from an archive and its segments (see
 /// [`crate::archive::segment_list`]); `list` keeps the segments in the result.
 pub fn inspect(a: &Archive, segments: Vec<SegmentInfo>, list: bool) -> Inspect {

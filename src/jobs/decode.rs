@@ -9,7 +9,7 @@ use crate::archive::reader::digest_mismatch;
 use crate::archive::{decode_channels, decode_salvage, Archive, DigestPolicy, DigestState, Hole};
 use crate::error::{Error, Result};
 use crate::fsio::{check_output, refuse_same_file};
-use crate::model::ChannelInfo;
+use crate::model::{ChannelInfo, ChannelSeries};
 use crate::signal::RealFft;
 use crate::source::write_decoded;
 
@@ -99,4 +99,145 @@ pub fn decode_file(
         channels: series.len(),
         holes,
     })
+}
+
+/// Decode the parts of a committed plan ([`crate::jobs::plan`]) as one archive into one
+/// Parquet file: each channel's samples from every part, in time order. The parts must come
+/// from sources of one layout (the same time column, time type and column names); a channel
+/// must have one value type and no time twice. Parts that hold none of `channels` are left
+/// out (so the channels of one layout can be decoded from a plan over several).
+pub fn decode_parts(
+    label: &str,
+    parts: &[PathBuf],
+    out: &Path,
+    channels: &[String],
+    from: Option<i64>,
+    to: Option<i64>,
+) -> Result<DecodeSummary> {
+    check_output(out)?;
+    let fft = RealFft::shared();
+    let mut schema: Option<crate::model::SourceSchema> = None;
+    let mut types: Vec<ChannelInfo> = Vec::new();
+    let mut pieces: Vec<ChannelSeries> = Vec::new();
+    for p in parts {
+        let archive = Archive::open(p, DigestPolicy::Refuse)?;
+        let wanted: Vec<String> = archive
+            .meta
+            .channels
+            .iter()
+            .filter(|c| channels.is_empty() || channels.contains(&c.name))
+            .map(|c| c.name.clone())
+            .collect();
+        if wanted.is_empty() {
+            continue;
+        }
+        let s = &archive.meta.schema;
+        match &schema {
+            None => schema = Some(s.clone()),
+            Some(first) => {
+                if first.layout != s.layout
+                    || first.time_column != s.time_column
+                    || first.time_type != s.time_type
+                    || first.channel_column != s.channel_column
+                    || first.value_column != s.value_column
+                {
+                    return Err(Error::Plan {
+                        plan: label.to_string(),
+                        reason: format!(
+                            "{} comes from a source of another layout than the first part's; \
+                             decode the channels of one layout at a time (--channel)",
+                            p.display()
+                        ),
+                    });
+                }
+            }
+        }
+        for c in &archive.meta.channels {
+            match types.iter().find(|t| t.name == c.name) {
+                Some(t) if t.value_type != c.value_type => {
+                    return Err(Error::Plan {
+                        plan: label.to_string(),
+                        reason: format!(
+                            "channel `{}` is {} in one part and {} in another",
+                            c.name,
+                            t.value_type.name(),
+                            c.value_type.name()
+                        ),
+                    })
+                }
+                Some(_) => {}
+                None => types.push(ChannelInfo {
+                    name: c.name.clone(),
+                    value_type: c.value_type,
+                }),
+            }
+        }
+        pieces.extend(decode_channels(&archive, &wanted, from, to, fft)?);
+    }
+    for c in channels {
+        if !types.iter().any(|t| &t.name == c) {
+            return Err(Error::InvalidOption {
+                name: "channel".into(),
+                reason: format!("{label}: no channel `{c}`"),
+            });
+        }
+    }
+    let Some(mut schema) = schema else {
+        return Err(Error::Plan {
+            plan: label.to_string(),
+            reason: "has no parts".into(),
+        });
+    };
+    schema.channels = types.clone();
+    let series = join_pieces(label, pieces)?;
+    let rows = write_decoded(out, &schema, &types, &series, channels)?;
+    Ok(DecodeSummary {
+        archive: PathBuf::from(label),
+        out: out.to_path_buf(),
+        rows,
+        channels: series.len(),
+        holes: Vec::new(),
+    })
+}
+
+/// One series per channel from pieces of it (parts cut by source, channels or time): the
+/// pieces in time order, end to end. Pieces that overlap in time would interleave two
+/// sources' samples of one channel: refused.
+fn join_pieces(label: &str, pieces: Vec<ChannelSeries>) -> Result<Vec<ChannelSeries>> {
+    let mut by_name: Vec<(String, Vec<ChannelSeries>)> = Vec::new();
+    for p in pieces.into_iter().filter(|p| !p.times.is_empty()) {
+        match by_name.iter_mut().find(|(n, _)| *n == p.name) {
+            Some((_, v)) => v.push(p),
+            None => by_name.push((p.name.clone(), vec![p])),
+        }
+    }
+    let mut out = Vec::new();
+    for (name, mut v) in by_name {
+        v.sort_by_key(|p| p.times[0]);
+        let mut joined = ChannelSeries {
+            name: name.clone(),
+            ..Default::default()
+        };
+        for p in v {
+            if let (Some(&last), Some(&first)) = (joined.times.last(), p.times.first()) {
+                if first <= last {
+                    return Err(Error::Plan {
+                        plan: label.to_string(),
+                        reason: format!(
+                            "channel `{name}` has samples at or before {last} ns in two parts \
+                             (two sources overlap in time)"
+                        ),
+                    });
+                }
+            }
+            let base = joined.times.len();
+            joined
+                .specials
+                .extend(p.specials.iter().map(|&(i, k)| (i + base, k)));
+            joined.times.extend(p.times);
+            joined.values.extend(p.values);
+        }
+        out.push(joined);
+    }
+    Ok(out)
 }

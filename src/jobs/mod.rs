@@ -6,6 +6,7 @@ pub mod control;
 pub mod decode;
 pub mod encode;
 pub mod pipeline;
+pub mod plan;
 pub mod stream;
 pub mod survey;
 pub mod trend;

@@ -159,7 +159,8 @@ pub fn load(path: &Path) -> Result<PipelineFile> {
     Ok(p)
 }
 
-fn resolve_rel(base: &Path, p: &Path) -> PathBuf {
+/// A path of a pipeline file, relative to the file's folder, with `a/../b` folded.
+pub fn resolve_rel(base: &Path, p: &Path) -> PathBuf {
     let joined = if p.is_absolute() {
         p.to_path_buf()
     } else {

@@ -549,25 +549,9 @@ fn read_windows(
     let mut samples: HashMap<usize, ChannelSamples> = HashMap::new();
     while let Some(chunks) = src.next_chunks() {
         for c in chunks? {
-            let s = &c.samples;
-            let keep: Vec<usize> = (0..s.len()).filter(|&i| inside(s.times[i])).collect();
-            if keep.is_empty() {
+            let part = c.samples.retain_times(inside);
+            if part.is_empty() {
                 continue;
-            }
-            let mut sp = s.specials.iter().peekable();
-            let mut part = ChannelSamples::default();
-            for (j, &i) in keep.iter().enumerate() {
-                part.times.push(s.times[i]);
-                part.values.push(s.values[i]);
-                part.rows.push(s.rows[i]);
-                while sp.peek().is_some_and(|x| x.0 < i) {
-                    sp.next();
-                }
-                if let Some(&&(k, kind)) = sp.peek() {
-                    if k == i {
-                        part.specials.push((j, kind));
-                    }
-                }
             }
             samples.entry(c.channel).or_default().extend_samples(part);
         }

@@ -144,6 +144,58 @@ pub fn trend(archive: &Archive, q: &TrendQuery, fft: &dyn Transform) -> Result<T
     })
 }
 
+/// Trend several archives (a committed plan's parts) as one: their points by channel (in the
+/// order channels are first met), then time.
+pub fn trend_union(
+    label: &str,
+    archives: &[Archive],
+    q: &TrendQuery,
+    fft: &dyn Transform,
+) -> Result<TrendReport> {
+    for c in &q.channels {
+        if !archives
+            .iter()
+            .any(|a| a.meta.channels.iter().any(|m| &m.name == c))
+        {
+            return Err(Error::InvalidOption {
+                name: "channel".into(),
+                reason: format!("{label}: no channel `{c}`"),
+            });
+        }
+    }
+    let mut order: Vec<String> = Vec::new();
+    let mut points = Vec::new();
+    let mut skipped = 0;
+    for a in archives {
+        let mut sub = q.clone();
+        sub.channels
+            .retain(|c| a.meta.channels.iter().any(|m| &m.name == c));
+        if !q.channels.is_empty() && sub.channels.is_empty() {
+            continue;
+        }
+        let r = trend(a, &sub, fft)?;
+        for m in &a.meta.channels {
+            if !order.contains(&m.name) {
+                order.push(m.name.clone());
+            }
+        }
+        points.extend(r.points);
+        skipped += r.skipped_segments;
+    }
+    let rank = |c: &str| order.iter().position(|o| o == c);
+    points.sort_by(|a, b| {
+        rank(&a.channel)
+            .cmp(&rank(&b.channel))
+            .then(a.start_ns.cmp(&b.start_ns))
+    });
+    Ok(TrendReport {
+        archive: label.to_string(),
+        harmonics: q.harmonics.clone(),
+        points,
+        skipped_segments: skipped,
+    })
+}
+
 fn block_points(
     block: &Block,
     channel: &str,

@@ -200,6 +200,12 @@ fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, 
                 .collect(),
         ),
         sample_rate_hz: None,
+        // A part of a plan cut in time holds its window's rows only.
+        window: archive
+            .meta
+            .settings
+            .get("window_ns")
+            .and_then(|w| serde_json::from_value(w.clone()).ok()),
     };
     let mut src = Source::open(source, &mapping)?;
     let mut samples: HashMap<usize, ChannelSamples> = HashMap::new();

@@ -62,6 +62,30 @@ impl ChannelSamples {
         }
     }
 
+    /// The samples whose time `keep` accepts, in their order (specials re-indexed).
+    pub fn retain_times(self, keep: impl Fn(i64) -> bool) -> ChannelSamples {
+        if self.times.iter().all(|&t| keep(t)) {
+            return self;
+        }
+        let mut out = ChannelSamples::default();
+        let mut sp = self.specials.iter().peekable();
+        for (i, &t) in self.times.iter().enumerate() {
+            while sp.peek().is_some_and(|x| x.0 < i) {
+                sp.next();
+            }
+            if !keep(t) {
+                continue;
+            }
+            if let Some(&&(_, kind)) = sp.peek().filter(|x| x.0 == i) {
+                out.specials.push((out.times.len(), kind));
+            }
+            out.times.push(t);
+            out.values.push(self.values[i]);
+            out.rows.push(self.rows[i]);
+        }
+        out
+    }
+
     /// Number of samples.
     pub fn len(&self) -> usize {
         self.times.len()

@@ -35,6 +35,9 @@ pub struct Mapping {
     pub channels: Option<Vec<String>>,
     /// Sample rate override (Hz); None: from the median step.
     pub sample_rate_hz: Option<f64>,
+    /// Only rows whose time is in `[from, to)` (ns since the epoch); None: every row. A
+    /// shard of a plan cut in time reads its window this way.
+    pub window: Option<(i64, i64)>,
 }
 
 impl Default for Mapping {
@@ -46,6 +49,7 @@ impl Default for Mapping {
             value_column: "value".into(),
             channels: None,
             sample_rate_hz: None,
+            window: None,
         }
     }
 }

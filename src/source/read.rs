@@ -52,6 +52,8 @@ pub struct Source {
     read_scale: i64,
     /// Rows in the file.
     pub total_rows: u64,
+    /// Only rows in `[from, to)` ns ([`Mapping::window`]).
+    window: Option<(i64, i64)>,
 }
 
 /// The time column's type as the writer of the file declared it, from the Arrow schema
@@ -361,11 +363,27 @@ impl Source {
             row: 0,
             read_scale,
             total_rows,
+            window: mapping.window,
         })
     }
 
     /// Read the next batch, split by channel. `None` at the end of the file.
     pub fn next_chunks(&mut self) -> Option<Result<Vec<ChannelChunk>>> {
+        let chunks = self.read_chunks()?;
+        let Some((from, to)) = self.window else {
+            return Some(chunks);
+        };
+        Some(chunks.map(|cs| {
+            cs.into_iter()
+                .map(|c| ChannelChunk {
+                    channel: c.channel,
+                    samples: c.samples.retain_times(|t| from <= t && t < to),
+                })
+                .collect()
+        }))
+    }
+
+    fn read_chunks(&mut self) -> Option<Result<Vec<ChannelChunk>>> {
         let next = contain(|| self.reader.next());
         let batch = match next {
             Ok(None) => return None,
