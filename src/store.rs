@@ -248,9 +248,15 @@ impl Location {
             return Ok(l.clone());
         }
         let bytes = self.get()?;
-        // Named by a hash of the location, so two sources of one name do not meet.
+        // Under its own name (archives record the source's name), in a folder named by a
+        // hash of the location, so that two sources of one name do not meet.
         let tag = crate::fsio::sha256_hex(self.text.as_bytes());
-        let out = dir.join(format!("{}-{}", &tag[..16], self.file_name()));
+        let folder = dir.join(&tag[..16]);
+        std::fs::create_dir_all(&folder).map_err(|e| Error::Write {
+            file: folder.clone(),
+            source: e,
+        })?;
+        let out = folder.join(self.file_name());
         std::fs::write(&out, &bytes).map_err(|e| Error::Write {
             file: out.clone(),
             source: e,

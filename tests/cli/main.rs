@@ -16,3 +16,4 @@ mod looking;
 mod pipeline;
 mod promises;
 mod roundtrip;
+mod shards;

@@ -135,6 +135,22 @@ impl Lab {
         )
     }
 
+    /// Run the binary with these environment variables set (working folder: the lab).
+    pub fn run_env(&self, args: &[&str], env: &[(String, String)]) -> Ran {
+        let out = Command::new(BIN)
+            .args(args)
+            .envs(env.iter().map(|(k, v)| (k.as_str(), v.as_str())))
+            .current_dir(self.dir.path())
+            .output()
+            .expect("the cyclarc binary starts");
+        self.record(
+            format!("cyclarc {}", args.join(" ")),
+            out.status.code(),
+            &out.stdout,
+            &out.stderr,
+        )
+    }
+
     /// Run `cyclarc encode SRC --out OUT EXTRA…`.
     pub fn encode(&self, src: &Path, out: &Path, extra: &[&str]) -> Ran {
         let mut args = vec!["encode", ps(src), "--out", ps(out)];
