@@ -16,4 +16,5 @@ mod looking;
 mod pipeline;
 mod promises;
 mod roundtrip;
+mod scale;
 mod shards;
