@@ -222,6 +222,47 @@ fn longest_finite(x: &[f64]) -> &[f64] {
     &x[best.0..best.1]
 }
 
+/// Blocks (s) whose RMS [`steady_part`] compares.
+pub const STEADY_BLOCK_SECONDS: f64 = 0.5;
+
+/// A block is steady when its RMS is within this factor of the stretch's median block RMS.
+pub const STEADY_FACTOR: f64 = 3.0;
+
+/// The steady part must keep at least this share of the stretch.
+pub const STEADY_MIN_SHARE: f64 = 0.25;
+
+/// The stretch a run's fundamental is estimated on: `x` less a start-up. A run that begins
+/// before its machine does (sensor noise, then a start's inrush or a run-up, then steady
+/// running) would have the estimate and the trial coder's prices bent by what comes first;
+/// the steady part is where every [`STEADY_BLOCK_SECONDS`] block from there to the end has
+/// an RMS within [`STEADY_FACTOR`] of the median block's. When the start is steady already,
+/// or the steady part is shorter than [`STEADY_MIN_SHARE`] of `x` (a trip, bursts, beats
+/// that vary more than that), `x` is kept whole.
+pub fn steady_part(x: &[f64], fs: f64) -> &[f64] {
+    let block = (STEADY_BLOCK_SECONDS * fs).round() as usize;
+    if block < 16 || x.len() < 4 * block {
+        return x;
+    }
+    let rms: Vec<f64> = x
+        .chunks_exact(block)
+        .map(|c| (c.iter().map(|v| v * v).sum::<f64>() / block as f64).sqrt())
+        .collect();
+    let mut sorted = rms.clone();
+    sorted.sort_by(f64::total_cmp);
+    let median = sorted[sorted.len() / 2];
+    if !(median > 0.0) {
+        return x;
+    }
+    let steady = |r: f64| r <= STEADY_FACTOR * median && r * STEADY_FACTOR >= median;
+    // The first block from which every block to the end is steady.
+    let from = rms.iter().rposition(|&r| !steady(r)).map_or(0, |i| i + 1);
+    let kept = x.len() - from * block;
+    if from == 0 || (kept as f64) < STEADY_MIN_SHARE * x.len() as f64 {
+        return x;
+    }
+    &x[from * block..]
+}
+
 /// Samples the first (global) estimate of a run looks at.
 pub const GLOBAL_ESTIMATE_SAMPLES: usize = 1 << 17;
 
@@ -521,9 +562,12 @@ impl Planner {
         let fs = self.settings.sample_rate;
         let f_min = 2.0 * fs / MAX_SEGMENT_SAMPLES as f64;
         let mut cands: Vec<Candidate> = Vec::new();
+        // Candidates come from the steady part (a start-up must not bend them); the trial
+        // coder below prices them on the run's start as the run will be cut.
+        let steady = steady_part(head, fs);
         for w in [1usize << 13, ESTIMATE_SAMPLES, usize::MAX] {
-            let stretch = &head[..head.len().min(w)];
-            if w != 1 << 13 && stretch.len() <= (1 << 13).min(head.len()) && !cands.is_empty() {
+            let stretch = &steady[..steady.len().min(w)];
+            if w != 1 << 13 && stretch.len() <= (1 << 13).min(steady.len()) && !cands.is_empty() {
                 continue;
             }
             for c in candidates(stretch, fs, f_min, MAX_AUTO_FUNDAMENTAL_HZ, FINALISTS) {
@@ -605,7 +649,7 @@ impl Planner {
         let mut priced: Vec<(Estimate, f64)> = cands
             .par_iter()
             .filter_map(|c| {
-                let hz = refine(trial, fs, c.hz, 0.01).unwrap_or(c.hz);
+                let hz = refine(steady, fs, c.hz, 0.01).unwrap_or(c.hz);
                 let e = Estimate {
                     hz,
                     confidence: c.confidence,
