@@ -169,13 +169,9 @@ enum Command {
     },
 }
 
+/// How a source is read and its fundamental found: the flags `encode` and `survey` share.
 #[derive(Args)]
-struct SurveyArgs {
-    /// The Parquet source.
-    source: PathBuf,
-    /// Only these channels (comma-separated).
-    #[arg(long, value_delimiter = ',')]
-    channels: Option<Vec<String>>,
+struct ReadingArgs {
     /// Fundamental frequency in Hz (used as is, no tracking).
     #[arg(long, conflicts_with = "fundamental")]
     fundamental_hz: Option<f64>,
@@ -194,19 +190,17 @@ struct SurveyArgs {
     /// Value column, long layout (default `value`).
     #[arg(long)]
     value_column: Option<String>,
+    /// Only these channels (comma-separated).
+    #[arg(long, value_delimiter = ',')]
+    channels: Option<Vec<String>>,
     /// Sample rate in Hz (default: from the timestamps' median step).
     #[arg(long)]
     sample_rate_hz: Option<f64>,
-    /// Print JSON on stdout instead of the table.
-    #[arg(long)]
-    json: bool,
-    /// Also write an SVG chart of the curves, noise floors and recommendations marked.
-    #[arg(long)]
-    svg: Option<PathBuf>,
 }
 
-impl SurveyArgs {
-    fn options(&self) -> EncodeOptions {
+impl ReadingArgs {
+    /// `o` with these flags set in it.
+    fn fill(&self, o: EncodeOptions) -> EncodeOptions {
         EncodeOptions {
             fundamental: self
                 .fundamental_hz
@@ -218,9 +212,23 @@ impl SurveyArgs {
             value_column: self.value_column.clone(),
             channels: self.channels.clone(),
             sample_rate_hz: self.sample_rate_hz,
-            ..Default::default()
+            ..o
         }
     }
+}
+
+#[derive(Args)]
+struct SurveyArgs {
+    /// The Parquet source.
+    source: PathBuf,
+    #[command(flatten)]
+    reading: ReadingArgs,
+    /// Print JSON on stdout instead of the table.
+    #[arg(long)]
+    json: bool,
+    /// Also write an SVG chart of the curves, noise floors and recommendations marked.
+    #[arg(long)]
+    svg: Option<PathBuf>,
 }
 
 #[derive(Args)]
@@ -268,33 +276,11 @@ struct EncodeArgs {
     /// Amplitude floor of protected bins (channel units; default 0).
     #[arg(long)]
     protect_floor: Option<f64>,
-    /// Fundamental frequency in Hz (used as is, no tracking).
-    #[arg(long, conflicts_with = "fundamental")]
-    fundamental_hz: Option<f64>,
-    /// `auto` (estimate and track; the default) or `none` (fixed-length segments).
-    #[arg(long)]
-    fundamental: Option<String>,
     /// Whole cycles per segment (default: fewest spanning 200 ms).
     #[arg(long)]
     cycles_per_segment: Option<u32>,
-    /// Source layout (default: detected).
-    #[arg(long, value_enum)]
-    layout: Option<Layout>,
-    /// Time column (default `time`).
-    #[arg(long)]
-    time_column: Option<String>,
-    /// Channel column, long layout (default `channel`).
-    #[arg(long)]
-    channel_column: Option<String>,
-    /// Value column, long layout (default `value`).
-    #[arg(long)]
-    value_column: Option<String>,
-    /// Only these channels (comma-separated).
-    #[arg(long, value_delimiter = ',')]
-    channels: Option<Vec<String>>,
-    /// Sample rate in Hz (default: from the timestamps' median step).
-    #[arg(long)]
-    sample_rate_hz: Option<f64>,
+    #[command(flatten)]
+    reading: ReadingArgs,
     /// zstd level for blocks, 1–22 (default 19).
     #[arg(long)]
     zstd_level: Option<i32>,
@@ -365,7 +351,7 @@ impl EncodeArgs {
     }
 
     fn options(&self) -> Result<EncodeOptions, Error> {
-        Ok(EncodeOptions {
+        Ok(self.reading.fill(EncodeOptions {
             budget_rms: self.budget_rms,
             budget_rel: self.budget_rel,
             budget_floor: self.budget_floor,
@@ -373,20 +359,10 @@ impl EncodeArgs {
             peak_max: self.peak_max,
             protect: self.protect()?,
             events: self.events.then_some(true),
-            fundamental: self
-                .fundamental_hz
-                .map(|f| f.to_string())
-                .or_else(|| self.fundamental.clone()),
             cycles_per_segment: self.cycles_per_segment,
-            layout: self.layout,
-            time_column: self.time_column.clone(),
-            channel_column: self.channel_column.clone(),
-            value_column: self.value_column.clone(),
-            channels: self.channels.clone(),
-            sample_rate_hz: self.sample_rate_hz,
             zstd_level: self.zstd_level,
             ..Default::default()
-        })
+        }))
     }
 }
 
@@ -582,7 +558,7 @@ fn run(cli: Cli) -> Result<i32, Error> {
             Ok(0)
         }
         Command::Survey(a) => {
-            let settings = a.options().resolve()?;
+            let settings = a.reading.fill(EncodeOptions::default()).resolve()?;
             let r = survey(&a.source, &settings)?;
             if let Some(p) = &a.svg {
                 write_text(p, &plot::panels_svg(&report::survey_panels(&r)))?;

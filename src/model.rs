@@ -331,3 +331,22 @@ pub struct ChannelSeries {
     /// Per entry of `segments`: its protected bins, if any.
     pub protected: Vec<Option<Vec<u32>>>,
 }
+
+impl ChannelSeries {
+    /// A channel's samples from stretches of it in time order (runs, or pieces of a channel
+    /// from several archives), end to end; each stretch's specials are indexed within it.
+    pub fn joined(name: &str, stretches: impl IntoIterator<Item = Run>) -> ChannelSeries {
+        let mut out = ChannelSeries {
+            name: name.to_string(),
+            ..Default::default()
+        };
+        for r in stretches {
+            let base = out.times.len();
+            out.specials
+                .extend(r.specials.iter().map(|&(i, k)| (i + base, k)));
+            out.times.extend(r.times);
+            out.values.extend(r.values);
+        }
+        out
+    }
+}

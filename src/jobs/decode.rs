@@ -214,29 +214,26 @@ fn join_pieces(label: &str, pieces: Vec<ChannelSeries>) -> Result<Vec<ChannelSer
     let mut out = Vec::new();
     for (name, mut v) in by_name {
         v.sort_by_key(|p| p.times[0]);
-        let mut joined = ChannelSeries {
-            name: name.clone(),
-            ..Default::default()
-        };
-        for p in v {
-            if let (Some(&last), Some(&first)) = (joined.times.last(), p.times.first()) {
-                if first <= last {
-                    return Err(Error::Plan {
-                        plan: label.to_string(),
-                        reason: format!(
-                            "channel `{name}` has samples at or before {last} ns in two parts \
-                             (two sources overlap in time)"
-                        ),
-                    });
-                }
+        for w in v.windows(2) {
+            let (last, first) = (w[0].times[w[0].times.len() - 1], w[1].times[0]);
+            if first <= last {
+                return Err(Error::Plan {
+                    plan: label.to_string(),
+                    reason: format!(
+                        "channel `{name}` has samples at or before {last} ns in two parts \
+                         (two sources overlap in time)"
+                    ),
+                });
             }
-            let base = joined.times.len();
-            joined
-                .specials
-                .extend(p.specials.iter().map(|&(i, k)| (i + base, k)));
-            joined.times.extend(p.times);
-            joined.values.extend(p.values);
         }
+        let joined = ChannelSeries::joined(
+            &name,
+            v.into_iter().map(|p| crate::model::Run {
+                times: p.times,
+                values: p.values,
+                specials: p.specials,
+            }),
+        );
         out.push(joined);
     }
     Ok(out)

@@ -561,19 +561,7 @@ fn read_windows(
         let index = src.schema.channels.iter().position(|c| c.name == info.name);
         let s = index.and_then(|i| samples.remove(&i)).unwrap_or_default();
         let ch = assemble(source, info.clone(), s, settings.source.sample_rate_hz)?;
-        let mut series = ChannelSeries {
-            name: info.name.clone(),
-            ..Default::default()
-        };
-        for run in ch.runs {
-            let base = series.times.len();
-            series
-                .specials
-                .extend(run.specials.iter().map(|&(i, k)| (i + base, k)));
-            series.times.extend(run.times);
-            series.values.extend(run.values);
-        }
-        out.push(series);
+        out.push(ChannelSeries::joined(&info.name, ch.runs));
     }
     Ok(out)
 }

@@ -219,19 +219,10 @@ fn read_source_like(archive: &Archive, source: &Path) -> Result<HashMap<String, 
         let info = src.schema.channels[ci].clone();
         // Sorting and duplicate checks as the encoder did; one sample rate for all runs.
         let ch = assemble(source, info.clone(), s, Some(1.0))?;
-        let mut series = ChannelSeries {
-            name: info.name.clone(),
-            ..Default::default()
-        };
-        for run in ch.runs {
-            let base = series.times.len();
-            series
-                .specials
-                .extend(run.specials.iter().map(|&(i, k)| (i + base, k)));
-            series.times.extend(run.times);
-            series.values.extend(run.values);
-        }
-        out.insert(info.name, series);
+        out.insert(
+            info.name.clone(),
+            ChannelSeries::joined(&info.name, ch.runs),
+        );
     }
     Ok(out)
 }
