@@ -265,7 +265,7 @@ impl Location {
     }
 
     /// Objects under this location's folder whose names (relative to it) match a glob
-    /// pattern, in name order.
+    /// pattern, in name order; as in a shell, `*` and `?` do not match `/`.
     pub fn list_matching(&self, pattern: &glob::Pattern) -> Result<Vec<Found>> {
         let prefix = self.path.clone();
         let listed: Vec<object_store::ObjectMeta> =
@@ -277,7 +277,11 @@ impl Location {
             .filter_map(|m| {
                 let full = m.location.as_ref();
                 let rel = full.get(base..)?.trim_start_matches('/').to_string();
-                pattern.matches(&rel).then(|| Found {
+                let opts = glob::MatchOptions {
+                    require_literal_separator: true,
+                    ..Default::default()
+                };
+                pattern.matches_with(&rel, opts).then(|| Found {
                     location: self.join(&rel),
                     size: m.size,
                     e_tag: m.e_tag,

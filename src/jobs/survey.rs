@@ -5,13 +5,18 @@
 //! back: the ratio-versus-budget curve, its knee, a recommended budget and what that budget
 //! keeps.
 //!
-//! - **Sample.** Up to [`SURVEY_WINDOWS`] windows of [`SURVEY_WINDOW_SECONDS`] spread evenly
-//!   over the source's time span (the same windows for every channel); a source no longer
-//!   than the windows together is surveyed whole, and its curve is then exactly what
-//!   `encode --channels C` writes with each budget. Each channel is encoded alone, as that
-//!   command would. A sampled channel's archive is split into what any archive costs (the
-//!   archive of the channel's first [`SNIPPET_SECONDS`] alone, less that archive's payload)
-//!   and the rest, which is scaled by the channel's samples over the sampled ones.
+//! - **Sample.** Up to [`SURVEY_WINDOWS`] windows spread evenly over the source's time span
+//!   (the same windows for every channel), each at least [`SURVEY_WINDOW_SECONDS`], four of
+//!   the planner's longest segments ([`LONGEST_SEGMENT_SECONDS`]) and two of its trial
+//!   stretches long; a source no longer than the windows together is surveyed whole, and
+//!   its curve is then exactly what `encode --channels C` writes with each budget. Each
+//!   channel is encoded alone, as that command would. A sampled channel's bytes are taken as
+//!   a fixed part (the archive of its first [`SNIPPET_SECONDS`] alone, less that archive's
+//!   payload), a part per run (the first segment, coded without a predecessor, and the last,
+//!   cut short) and a part per sample: the sample and its windows' first halves have the
+//!   same runs and differ in samples only, which gives the part per sample; the whole
+//!   channel is then its fixed part, its runs and its samples. The source is read twice,
+//!   streaming: once for each channel's span, samples, runs and RMS, once for the windows.
 //! - **Noise floor.** Per window: the Hann-windowed periodogram (orthonormal DFT), whose
 //!   ordinates on white noise of variance σ² are exponential with mean σ²·Σw²/N, so their
 //!   median is ln 2 times that (a χ² variable with 2 degrees of freedom; Brockwell & Davis,
