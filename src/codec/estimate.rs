@@ -150,7 +150,8 @@ impl Spectrum {
     /// Power at frequency `f`, linearly interpolated between padded bins.
     fn at(&self, f: f64) -> f64 {
         let b = f / self.bin_hz;
-        let k = b.floor() as usize;
+        // `b` is not negative: truncation is its floor (and no libm call).
+        let k = b as usize;
         if k + 1 >= self.power.len() {
             return 0.0;
         }

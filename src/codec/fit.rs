@@ -19,7 +19,7 @@
 use serde::Serialize;
 
 use crate::codec::decode::{synthesize, synthesize_trend, trend_basis, Prev};
-use crate::codec::quant::{cost_bits, delta_codes};
+use crate::codec::quant::{cost_bits, delta_codes, round_away};
 use crate::codec::search::HEADER_BITS;
 pub use crate::codec::search::{
     choose_step_order, error_by_order, quantize, SEARCH_PATIENCE, STEPS_PER_OCTAVE,
@@ -164,39 +164,17 @@ pub(crate) fn measure(
         let peak = y.iter().fold(0.0f64, |a, v| a.max(v.abs()));
         FP_MARGIN_REL * peak + f64::MIN_POSITIVE
     });
-    // Sums of the squares of (term · s), the count, and the largest |term|.
-    let pass = |s: f64| {
-        let (mut sum, mut worst, mut count, mut peak) = (0.0, 0.0, 0usize, 0.0f64);
-        for (i, (&x, &o)) in source.iter().zip(output).enumerate() {
-            if !x.is_finite() {
-                continue;
-            }
-            count += 1;
-            let e = o - x;
-            peak = peak.max(e.abs());
-            let es = e * s;
-            sum += es * es;
-            if let (Some(tau), Some(y)) = (tau, raw_y) {
-                match value_type {
-                    ValueType::F64 => {
-                        let w = e.abs() + tau;
-                        peak = peak.max(w);
-                        let ws = w * s;
-                        worst += ws * ws;
-                    }
-                    _ => {
-                        let lo = value_type.round(y[i] - tau) - x;
-                        let hi = value_type.round(y[i] + tau) - x;
-                        peak = peak.max(lo.abs()).max(hi.abs());
-                        let (lo, hi) = (lo * s, hi * s);
-                        worst += (lo * lo).max(hi * hi).max(es * es);
-                    }
-                }
-            } else {
-                worst += es * es;
-            }
+    // Sums of the squares of (term · s), the count, and the largest |term|; one loop per
+    // kind of output, so that no branch but the finiteness test runs per sample.
+    let pass = |s: f64| match (tau, raw_y) {
+        (Some(tau), Some(_)) if value_type == ValueType::F64 => {
+            error_pass(source, output, s, |e| e.abs() + tau)
         }
-        (sum, worst, count, peak)
+        (Some(tau), Some(y)) => match value_type {
+            ValueType::F32 => rounded_pass(source, output, y, s, tau, |v| v as f32 as f64),
+            _ => rounded_pass(source, output, y, s, tau, |v| value_type.round(v)),
+        },
+        _ => error_pass(source, output, s, f64::abs),
     };
     let (mut sum, mut worst, count, peak) = pass(1.0);
     if count == 0 {
@@ -210,6 +188,57 @@ pub(crate) fn measure(
     }
     let n = count as f64;
     ((sum / n).sqrt() / s, (worst / n).sqrt() / s)
+}
+
+/// [`measure`]'s sums where the widened error of a sample is `widen(e)` from its error `e`:
+/// (Σ (e·s)², Σ (widened·s)², count, largest widened).
+fn error_pass(
+    source: &[f64],
+    output: &[f64],
+    s: f64,
+    widen: impl Fn(f64) -> f64,
+) -> (f64, f64, usize, f64) {
+    let (mut sum, mut worst, mut count, mut peak) = (0.0, 0.0, 0usize, 0.0f64);
+    for (&x, &o) in source.iter().zip(output) {
+        if !x.is_finite() {
+            continue;
+        }
+        count += 1;
+        let e = o - x;
+        let w = widen(e);
+        peak = peak.max(w);
+        let (es, ws) = (e * s, w * s);
+        sum += es * es;
+        worst += ws * ws;
+    }
+    (sum, worst, count, peak)
+}
+
+/// [`measure`]'s sums for an output rounded to an integer or f32 type from the unrounded
+/// `y`: the widened error of a sample is the worst of its output and of `round(y ± tau)`.
+fn rounded_pass(
+    source: &[f64],
+    output: &[f64],
+    y: &[f64],
+    s: f64,
+    tau: f64,
+    round: impl Fn(f64) -> f64,
+) -> (f64, f64, usize, f64) {
+    let (mut sum, mut worst, mut count, mut peak) = (0.0, 0.0, 0usize, 0.0f64);
+    for ((&x, &o), &y) in source.iter().zip(output).zip(y) {
+        if !x.is_finite() {
+            continue;
+        }
+        count += 1;
+        let e = o - x;
+        let lo = round(y - tau) - x;
+        let hi = round(y + tau) - x;
+        peak = peak.max(e.abs()).max(lo.abs()).max(hi.abs());
+        let (es, lo, hi) = (e * s, lo * s, hi * s);
+        sum += es * es;
+        worst += (lo * lo).max(hi * hi).max(es * es);
+    }
+    (sum, worst, count, peak)
 }
 
 /// Fit one segment. `prev` is the previous Fourier segment of the same block, if any.
@@ -235,14 +264,6 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
     let scale = filled.iter().fold(0.0f64, |a, v| a.max(v.abs()));
     let round_mse = value_type.rounding_mse(scale);
     let mut best = lossless;
-    if let Some(s) = fit_samples(values, &filled, value_type, budget_rms, round_mse) {
-        if s.plan.cost_bits < best.plan.cost_bits {
-            best = Fitted {
-                spectrum: spectrum.clone(),
-                ..s
-            };
-        }
-    }
     let fourier = fit_fourier(
         values,
         &spectrum,
@@ -263,6 +284,15 @@ pub fn fit_segment(input: SegmentInput<'_>, prev: Option<&Prev>, fft: &dyn Trans
         if f.plan.cost_bits < best.plan.cost_bits {
             best = f;
         }
+    }
+    // After the Fourier fit, so that on a periodic segment the samples' codes are only
+    // counted, never synthesized and measured.
+    let beat = best.plan.cost_bits;
+    if let Some(s) = fit_samples_beating(values, &filled, value_type, budget_rms, round_mse, beat) {
+        best = Fitted {
+            spectrum: spectrum.clone(),
+            ..s
+        };
     }
     if let Some(order) = fourier_order {
         let warp = WarpInput {
@@ -599,6 +629,26 @@ pub fn fit_samples(
     budget_rms: f64,
     round_mse: f64,
 ) -> Option<Fitted> {
+    fit_samples_beating(
+        values,
+        filled,
+        value_type,
+        budget_rms,
+        round_mse,
+        f64::INFINITY,
+    )
+}
+
+/// [`fit_samples`], given up as soon as a step's codes cost `beat` bits or more: a smaller
+/// step only adds bits, so such a fit cannot win and is never synthesized or measured.
+fn fit_samples_beating(
+    values: &[f64],
+    filled: &[f64],
+    value_type: ValueType,
+    budget_rms: f64,
+    round_mse: f64,
+    beat: f64,
+) -> Option<Fitted> {
     let eff = budget_rms * budget_rms - round_mse;
     if !(eff > 0.0) {
         return None;
@@ -609,12 +659,15 @@ pub fn fit_samples(
             return None;
         }
         let s = step as f64;
-        let q: Vec<i64> = filled.iter().map(|&v| (v / s).round() as i64).collect();
+        let q: Vec<i64> = filled.iter().map(|&v| round_away(v / s) as i64).collect();
+        let delta = delta_codes(&q);
+        let (cp, cd) = (cost_bits(&q), cost_bits(&delta));
+        if !(cp.min(cd) + HEADER_BITS < beat) {
+            return None;
+        }
         let output: Vec<f64> = q.iter().map(|&v| value_type.round(v as f64 * s)).collect();
         let (err, bound) = measure(values, &output, None, value_type);
         if bound <= budget_rms {
-            let delta = delta_codes(&q);
-            let (cp, cd) = (cost_bits(&q), cost_bits(&delta));
             let (codes, predicted, bits) = if cd < cp {
                 (delta, true, cd)
             } else {

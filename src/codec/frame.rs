@@ -452,13 +452,35 @@ pub fn compress(bytes: &[u8], level: i32) -> std::io::Result<Vec<u8>> {
 /// few dozen bits per context learning what a long run of zeros has to say.
 pub const VARINT_TRIAL_BYTES: usize = 4096;
 
+/// Serialized blocks at least this long (bytes) are first compressed at level 1, and kept so
+/// when that saves less than [`PROBE_MIN_SAVING`]: a block of range-coded codes (broadband
+/// vibration) is as good as incompressible, and zstd's slow levels spend a sixth of the
+/// encoder's time finding that out; blocks that level 1 shrinks get the level asked for.
+pub const PROBE_BYTES: usize = 4096;
+
+/// The share of its bytes that level 1 must save for a block to be compressed at the level
+/// asked for ([`PROBE_BYTES`]).
+pub const PROBE_MIN_SAVING: f64 = 0.03;
+
+/// [`compress`] at `level`, or at level 1 where that already shows the bytes are nearly
+/// incompressible ([`PROBE_BYTES`]).
+fn compress_frame(bytes: &[u8], level: i32) -> std::io::Result<Vec<u8>> {
+    if level > 1 && bytes.len() >= PROBE_BYTES {
+        let fast = compress(bytes, 1)?;
+        if fast.len() as f64 > (1.0 - PROBE_MIN_SAVING) * bytes.len() as f64 {
+            return Ok(fast);
+        }
+    }
+    compress(bytes, level)
+}
+
 /// Encode a block to a compressed frame.
 pub fn encode_block(b: &Block, level: i32) -> std::io::Result<Vec<u8>> {
-    let frame = compress(&serialize_block(b), level)?;
+    let frame = compress_frame(&serialize_block(b), level)?;
     if frame.len() >= VARINT_TRIAL_BYTES || b.guarded() {
         return Ok(frame);
     }
-    let varint = compress(&serialize_block_as(b, BLOCK_FORMAT_VARINT), level)?;
+    let varint = compress_frame(&serialize_block_as(b, BLOCK_FORMAT_VARINT), level)?;
     Ok(if varint.len() < frame.len() {
         varint
     } else {

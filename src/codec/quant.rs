@@ -23,6 +23,38 @@ pub fn round_even(x: f64) -> f64 {
     }
 }
 
+/// `x.round()` (ties away from zero) without the libm call it costs where SSE4.1 is not
+/// assumed: the integer part by conversion, then the exact fraction decides. Magnitudes of
+/// 2⁵² and above (and non-finite values) are returned as they are, as `round` does.
+#[inline]
+pub fn round_away(x: f64) -> f64 {
+    if x.abs() < 4_503_599_627_370_496.0 {
+        // 2^52: the fraction x − trunc(x) is exact.
+        let t = x as i64 as f64;
+        let f = x - t;
+        if f >= 0.5 {
+            t + 1.0
+        } else if f <= -0.5 {
+            t - 1.0
+        } else {
+            t
+        }
+    } else {
+        x
+    }
+}
+
+/// `x.floor() as isize` without the libm call (see [`round_away`]); the same for every `x`.
+#[inline]
+pub fn floor_index(x: f64) -> isize {
+    let i = x as isize;
+    if (i as f64) > x {
+        i.saturating_sub(1)
+    } else {
+        i
+    }
+}
+
 /// Quantize residual `c − p` with step Δ (`inv` = 1/Δ); returns (code_re, code_im, error
 /// energy of the bin with weight). The code is the nearest multiple of Δ to within the
 /// rounding of `r·inv`; the error is computed from the code as chosen, so it is exact for
@@ -207,6 +239,46 @@ mod tests {
     fn zigzag_round_trips_extremes() {
         for v in [0i64, 1, -1, 63, -64, i64::MAX, i64::MIN] {
             assert_eq!(unzigzag(zigzag(v)), v);
+        }
+    }
+
+    #[test]
+    fn round_away_and_floor_index_agree_with_the_standard_library() {
+        let mut v: Vec<f64> = vec![
+            0.0,
+            -0.0,
+            0.5,
+            -0.5,
+            1.5,
+            -1.5,
+            2.5,
+            -2.5,
+            0.49999999999999994,
+            -0.49999999999999994,
+            4503599627370495.5,
+            -4503599627370495.5,
+            4503599627370496.0,
+            1e300,
+            -1e300,
+            f64::INFINITY,
+            f64::NEG_INFINITY,
+            f64::NAN,
+            f64::MIN_POSITIVE,
+            -f64::MIN_POSITIVE,
+        ];
+        let mut x = 0.123_456_789f64;
+        for i in 0..20_000 {
+            x = (x * 3.7 + 0.1).fract();
+            v.push((x - 0.5) * 10f64.powi(i % 18 - 3));
+            v.push((i as f64 - 10_000.0) / 4.0);
+        }
+        for x in v {
+            let (a, b) = (round_away(x), x.round());
+            assert!(
+                a == b || (a.is_nan() && b.is_nan()),
+                "round {x}: {a} vs {b}"
+            );
+            assert_eq!(floor_index(x), x.floor() as isize, "floor {x}");
         }
     }
 

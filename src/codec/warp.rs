@@ -34,7 +34,7 @@ pub fn time(a: f64, u: f64) -> f64 {
 /// Keys cubic convolution (a = −½) of `x` at fractional index `t`, edge samples repeated.
 fn cubic(x: &[f64], t: f64) -> f64 {
     let n = x.len() as isize;
-    let i = t.floor() as isize;
+    let i = crate::codec::quant::floor_index(t);
     let f = t - i as f64;
     let at = |j: isize| x[j.clamp(0, n - 1) as usize];
     let (p0, p1, p2, p3) = (at(i - 1), at(i), at(i + 1), at(i + 2));
