@@ -654,6 +654,9 @@ fn fit_samples_beating(
         return None;
     }
     let mut step = (12.0 * eff).sqrt() as f32;
+    if beat.is_finite() && sampled_bits(filled, step as f64) > SAMPLED_MARGIN * beat {
+        return None;
+    }
     for _ in 0..MAX_TIGHTEN * 2 {
         if !(step > 0.0 && step.is_finite()) {
             return None;
@@ -697,6 +700,49 @@ fn fit_samples_beating(
         step *= 0.84;
     }
     None
+}
+
+/// Every this many samples one is quantized by [`sampled_bits`].
+const SAMPLED_STRIDE: usize = 16;
+
+/// A samples fit is skipped when [`sampled_bits`] is more than this many times the cost it
+/// would have to beat.
+const SAMPLED_MARGIN: f64 = 2.0;
+
+/// A quick estimate of the bits of the samples fit's codes at step `step` (without the
+/// code table [`cost_bits`] adds): the order-0 entropy of the codes of every [`SAMPLED_STRIDE`]th sample and of their differences to the
+/// sample before (the cheaper of the two), times the samples. A plug-in entropy from a
+/// sample of the codes is biased low, so on a periodic segment whose Fourier fit costs a
+/// fraction of a bit per sample a margin of [`SAMPLED_MARGIN`] never skips a samples fit that
+/// would win. Segments shorter than 64 strides are not estimated (0).
+fn sampled_bits(filled: &[f64], step: f64) -> f64 {
+    let n = filled.len();
+    if n < 64 * SAMPLED_STRIDE {
+        return 0.0;
+    }
+    let q = |i: usize| round_away(filled[i] / step) as i64;
+    let (plain, delta): (Vec<i64>, Vec<i64>) = (1..n)
+        .step_by(SAMPLED_STRIDE)
+        .map(|i| {
+            let v = q(i);
+            (v, v.wrapping_sub(q(i - 1)))
+        })
+        .unzip();
+    entropy_per_code(plain).min(entropy_per_code(delta)) * n as f64
+}
+
+/// The empirical order-0 entropy (bits per code) of `codes`.
+fn entropy_per_code(mut codes: Vec<i64>) -> f64 {
+    codes.sort_unstable();
+    let total = codes.len() as f64;
+    codes
+        .chunk_by(|a, b| a == b)
+        .map(|run| {
+            let c = run.len() as f64;
+            c * (total / c).log2()
+        })
+        .sum::<f64>()
+        / total
 }
 
 /// The Fourier fit of `spectrum`, synthesized as `synthesis` says.
