@@ -114,12 +114,14 @@ impl Spectrum {
         let total: f64 = power.iter().sum();
         // The local floor: the median power of each block of FLOOR_BLOCK bins.
         let mut line = vec![0.0; power.len()];
-        let mut sorted = Vec::with_capacity(FLOOR_BLOCK);
+        // Powers are finite and not negative, so their bit patterns sort as they do: the
+        // median is selected on integers.
+        let mut sorted: Vec<u64> = Vec::with_capacity(FLOOR_BLOCK);
         for (lb, pb) in line.chunks_mut(FLOOR_BLOCK).zip(power.chunks(FLOOR_BLOCK)) {
             sorted.clear();
-            sorted.extend_from_slice(pb);
+            sorted.extend(pb.iter().map(|p| p.to_bits()));
             let mid = sorted.len() / 2;
-            let floor = *sorted.select_nth_unstable_by(mid, f64::total_cmp).1;
+            let floor = f64::from_bits(*sorted.select_nth_unstable(mid).1);
             for (l, &p) in lb.iter_mut().zip(pb) {
                 if p > LINE_OVER_FLOOR * floor {
                     *l = (p / floor).ln();
