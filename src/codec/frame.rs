@@ -610,6 +610,44 @@ mod tests {
         }
     }
 
+    /// [`sample_block`] with a lossless segment of `n` f32 words from `word`.
+    fn block_with_raw(n: usize, word: impl Fn(usize) -> u64) -> Block {
+        let mut b = sample_block();
+        b.segments[0].len = n + 1;
+        b.segments[0].raw = (0..n).map(word).collect();
+        let times: Vec<i64> = (0..b.segments.iter().map(|s| s.len).sum::<usize>() as i64)
+            .map(|i| 10 * i)
+            .collect();
+        b.times = BlockTimes::from_times(&times);
+        b
+    }
+
+    #[test]
+    fn incompressible_and_compressible_blocks_round_trip_through_the_level_probe() {
+        // SplitMix64 (Steele, Lea and Flood, OOPSLA 2014) words: as incompressible as
+        // range-coded codes.
+        let mix = |i: usize| {
+            let mut z = (i as u64).wrapping_mul(0x9e37_79b9_7f4a_7c15);
+            z = (z ^ (z >> 30)).wrapping_mul(0xbf58_476d_1ce4_e5b9);
+            z = (z ^ (z >> 27)).wrapping_mul(0x94d0_49bb_1331_11eb);
+            (z ^ (z >> 31)) & 0xffff_ffff
+        };
+        let noisy = block_with_raw(4096, mix);
+        let bytes = serialize_block(&noisy);
+        assert!(bytes.len() >= PROBE_BYTES);
+        let frame = encode_block(&noisy, 19).unwrap();
+        assert_eq!(frame, compress(&bytes, 1).unwrap());
+        assert_eq!(decode_block(&frame).unwrap(), noisy);
+        // Words from a short cycle: level 1 saves far more than 3 %, so level 19 is used
+        // (and the varint layout too, when that frame is smaller still).
+        let cyclic = block_with_raw(4096, |i| mix(i % 16));
+        let bytes = serialize_block(&cyclic);
+        let frame = encode_block(&cyclic, 19).unwrap();
+        assert!(frame.len() <= compress(&bytes, 19).unwrap().len());
+        assert!(frame.len() < compress(&bytes, 1).unwrap().len());
+        assert_eq!(decode_block(&frame).unwrap(), cyclic);
+    }
+
     #[test]
     fn flipped_frame_bytes_are_detected() {
         let frame = encode_block(&sample_block(), 3).unwrap();
