@@ -266,13 +266,13 @@ pub(crate) struct JobChannel {
 /// A batch of blocks being fitted on the thread pool while the caller reads on. Dropped
 /// unfinished (an early return), it still waits for the batch, so no work outlives the job.
 pub(crate) struct InFlight {
-    handle: Option<std::thread::JoinHandle<Result<Vec<EncodedBlock>>>>,
+    handle: Option<Fitting>,
     /// Every block handed out after this batch starts at or after this time.
     watermark: i64,
 }
 
 impl InFlight {
-    fn new(handle: std::thread::JoinHandle<Result<Vec<EncodedBlock>>>, watermark: i64) -> Self {
+    fn new(handle: Fitting, watermark: i64) -> Self {
         InFlight {
             handle: Some(handle),
             watermark,
@@ -281,10 +281,13 @@ impl InFlight {
 
     /// Wait for the batch and file its blocks in canonical order.
     fn finish(mut self, ordered: &mut Ordered) -> Result<()> {
-        let Some(h) = self.handle.take() else {
-            return Ok(());
+        let done = match self.handle.take() {
+            None => return Ok(()),
+            Some(Fitting::Done(r)) => r?,
+            Some(Fitting::Running(h)) => {
+                h.join().unwrap_or_else(|p| std::panic::resume_unwind(p))?
+            }
         };
-        let done = h.join().unwrap_or_else(|p| std::panic::resume_unwind(p))?;
         for b in done {
             if let Some(s) = b.segments.first() {
                 ordered.insert((s.start_ns, b.channel.clone()), b);
@@ -296,20 +299,30 @@ impl InFlight {
 
 impl Drop for InFlight {
     fn drop(&mut self) {
-        if let Some(h) = self.handle.take() {
+        if let Some(Fitting::Running(h)) = self.handle.take() {
             let _ = h.join();
         }
     }
 }
 
+/// A batch of blocks being fitted on the pool, or already fitted on the caller's thread.
+pub(crate) enum Fitting {
+    /// Fitting on the pool, from a thread of its own.
+    Running(std::thread::JoinHandle<Result<Vec<EncodedBlock>>>),
+    /// Fitted (a pool of one thread: see [`start_fit`]).
+    Done(Result<Vec<EncodedBlock>>),
+}
+
 /// Hand the waiting blocks to the thread pool without waiting for them. The same blocks as
-/// [`fit_jobs`] (each depends only on its own samples and settings).
+/// [`fit_jobs`] (each depends only on its own samples and settings). With a pool of one
+/// thread (`--threads 1`) they are fitted here and now: one thread then does all the work, as
+/// a one-core task (a shard on a one-core executor) expects.
 pub(crate) fn start_fit(
     source: &Path,
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
     settings: &Arc<Settings>,
-) -> std::thread::JoinHandle<Result<Vec<EncodedBlock>>> {
+) -> Fitting {
     let work: Vec<(BlockJob, JobChannel)> = std::mem::take(jobs)
         .into_iter()
         .map(|j| {
@@ -324,17 +337,19 @@ pub(crate) fn start_fit(
         .collect();
     let settings = Arc::clone(settings);
     let file = source.to_path_buf();
-    std::thread::spawn(move || {
-        work.into_par_iter()
-            .map(|(j, c)| {
-                let p = RunParams::new(&c.name, c.value_type, c.sample_rate, &settings.codec);
-                encode_block_of(&j.run, &j.segs, &p).map_err(|e| Error::Codec {
-                    file: file.clone(),
-                    source: e,
-                })
-            })
-            .collect()
-    })
+    let fit = move |(j, c): (BlockJob, JobChannel)| {
+        let p = RunParams::new(&c.name, c.value_type, c.sample_rate, &settings.codec);
+        encode_block_of(&j.run, &j.segs, &p).map_err(|e| Error::Codec {
+            file: file.clone(),
+            source: e,
+        })
+    };
+    if rayon::current_num_threads() <= 1 {
+        return Fitting::Done(work.into_iter().map(fit).collect());
+    }
+    Fitting::Running(std::thread::spawn(move || {
+        work.into_par_iter().map(fit).collect()
+    }))
 }
 
 /// Fit the waiting blocks in parallel and file them in canonical order: [`start_fit`] and
@@ -462,8 +477,13 @@ pub(crate) fn encode_pass(
     let total_rows = src.total_rows;
     // The channels known from the schema (wide layout); a long layout's arrive with batches.
     let mut infos: Vec<ChannelInfo> = src.schema.channels.clone();
-    // Reading runs one batch ahead on its own thread, beside planning and fitting.
-    let mut reader = Prefetch::start(src);
+    // Reading runs one batch ahead on its own thread, beside planning and fitting, unless
+    // the pool has one thread.
+    let mut reader = if rayon::current_num_threads() <= 1 {
+        Prefetch::inline(src)
+    } else {
+        Prefetch::start(src)
+    };
     let mut writer = ArchiveWriter::create(out)?;
     let mut channels: Vec<ChannelEncoder> = Vec::new();
     let mut gathered: Vec<ChannelSamples> = Vec::new();

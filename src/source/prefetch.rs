@@ -4,6 +4,9 @@
 //! Batches arrive in file order, each with the channels the source met for the first time in
 //! it, so the consumer sees exactly what it would see calling [`Source::next_chunks`] itself.
 //!
+//! A job that must keep to one thread reads through [`Prefetch::inline`] instead: the same
+//! batches, read when asked.
+//!
 //! Does not: change what is read, or its order.
 
 use std::sync::mpsc::{sync_channel, Receiver};
@@ -28,9 +31,23 @@ pub struct Batch {
 pub struct Prefetch {
     rx: Option<Receiver<Batch>>,
     thread: Option<JoinHandle<Source>>,
+    /// Read by the consumer itself ([`Prefetch::inline`]): the source, the channels it knew,
+    /// and whether it is done.
+    here: Option<(Source, usize, bool)>,
 }
 
 impl Prefetch {
+    /// Read `src` on the consumer's own thread, a batch when asked: the same batches as
+    /// [`Prefetch::start`], for a job that must keep to one thread.
+    pub fn inline(src: Source) -> Prefetch {
+        let known = src.schema.channels.len();
+        Prefetch {
+            rx: None,
+            thread: None,
+            here: Some((src, known, false)),
+        }
+    }
+
     /// Start reading `src` on a new thread.
     pub fn start(mut src: Source) -> Prefetch {
         let (tx, rx) = sync_channel(PREFETCH_BATCHES);
@@ -56,11 +73,28 @@ impl Prefetch {
         Prefetch {
             rx: Some(rx),
             thread: Some(thread),
+            here: None,
         }
     }
 
     /// The next batch, or None at the end of the source (or after a failed batch).
     pub fn next_batch(&mut self) -> Option<Batch> {
+        if let Some((src, known, done)) = &mut self.here {
+            if *done {
+                return None;
+            }
+            let Some(chunks) = src.next_chunks() else {
+                *done = true;
+                return None;
+            };
+            *done = chunks.is_err();
+            let new_channels = src.schema.channels[*known..].to_vec();
+            *known = src.schema.channels.len();
+            return Some(Batch {
+                chunks,
+                new_channels,
+            });
+        }
         self.rx.as_ref()?.recv().ok()
     }
 
@@ -70,6 +104,9 @@ impl Prefetch {
     }
 
     fn stop(&mut self) -> Option<Source> {
+        if let Some((src, _, _)) = self.here.take() {
+            return Some(src);
+        }
         // Dropping the receiver ends a reader blocked on a full channel.
         self.rx = None;
         let thread = self.thread.take()?;
