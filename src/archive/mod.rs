@@ -1,7 +1,7 @@
 //! Archive: cyclarc's archive file — its schema, metadata and version rules, writing it, and
 //! reading it back into channels. Never imports the jobs.
 //!
-//! An archive is one Parquet file (zstd). A row holds consecutive segments of one block that
+//! An archive is one Parquet file (zstd, Parquet 2.0 data pages). A row holds consecutive segments of one block that
 //! start less than [`schema::ROW_SPAN_NS`] (a second) after its first one:
 //!
 //! | column | type | meaning |
@@ -16,6 +16,7 @@
 //! | `rms` | float32 | RMS of the source, samples-weighted over the segments |
 //! | `h1_amp` | float32, null | peak amplitude of the fundamental, RMS over the periodic segments |
 //! | `thd` | float32, null | THD of harmonics 2–50 (IEEE 519): harmonic power over fundamental power |
+//! | `event` | boolean, null | whether the row's segments are events; only with event capture |
 //! | `payload` | binary, null | on the block's first row: its zstd frame, then the CRC-32 (LE) of the frame and of every column of the block's rows |
 //!
 //! What each segment is (samples, basis, order, cycles) is in the frame only

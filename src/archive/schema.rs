@@ -12,7 +12,7 @@ use arrow::datatypes::{
     DataType, Field, Float32Type, Int32Type, Schema, TimeUnit, TimestampNanosecondType,
 };
 use parquet::basic::{Compression, Encoding, ZstdLevel};
-use parquet::file::properties::{EnabledStatistics, WriterProperties};
+use parquet::file::properties::{EnabledStatistics, WriterProperties, WriterVersion};
 use parquet::schema::types::ColumnPath;
 
 use crate::codec::encode::{compact, SegmentSummary};
@@ -277,7 +277,7 @@ pub const COLUMNS: &[Column] = {
     &[
         column("channel", Utf8, false, Dict, Metadata),
         column("start", TimestampNsUtc, false, Delta, Metadata),
-        column("samples", Int32, false, Dict, Metadata),
+        column("samples", Int32, false, Delta, Metadata),
         column("block", Int32, false, Delta, Metadata),
         column("error_rms", Float32, false, Bss, Metadata),
         column("budget_use", Float32, false, Bss, Metadata),
@@ -295,19 +295,24 @@ pub fn column_class(name: &str) -> Option<ColumnClass> {
     COLUMNS.iter().find(|c| c.name == name).map(|c| c.class)
 }
 
-/// The archive's Arrow schema.
-pub fn archive_schema() -> Schema {
+/// The archive's Arrow schema. Without event capture the `event` column, null on every row,
+/// is left out (readers take an absent column as no capture, as in archives written before
+/// it existed): about 70 B of every small archive.
+pub fn archive_schema(events: bool) -> Schema {
     Schema::new(
         COLUMNS
             .iter()
+            .filter(|c| events || c.name != "event")
             .map(|c| Field::new(c.name, c.data_type.data_type(), c.nullable))
             .collect::<Vec<_>>(),
     )
 }
 
-/// How the archive's columns are written. (Writing a small archive plain and uncompressed
-/// would save about 150 B, but on damaged page headers the parquet reader then allocates
-/// gigabytes: measured with the mutation test, so every archive is written this one way.)
+/// How the archive's columns are written. Parquet 2.0 data pages: a page whose values zstd
+/// would not shrink keeps them as they are (the columns of a small archive: 40 B of a
+/// one-segment archive), decided page by page inside the one zstd column chunk. (Writing
+/// whole small archives uncompressed was tried before: on damaged page headers the parquet
+/// reader then allocated gigabytes, measured with the mutation test.)
 pub(crate) fn writer_properties() -> WriterProperties {
     // Statistics only where a query prunes by them (channel, start), and no page index: on a
     // small archive each costs more than the payload.
@@ -316,6 +321,7 @@ pub(crate) fn writer_properties() -> WriterProperties {
         .set_max_row_group_row_count(Some(1 << 20))
         .set_statistics_enabled(EnabledStatistics::None)
         .set_offset_index_disabled(true)
+        .set_writer_version(WriterVersion::PARQUET_2_0)
         .set_created_by(crate::archive::meta::WRITER.into());
     for c in COLUMNS {
         let col = || ColumnPath::from(c.name);
@@ -333,6 +339,7 @@ pub(crate) fn writer_properties() -> WriterProperties {
             ColumnWriting::Plain => b.set_column_dictionary_enabled(col(), false),
             ColumnWriting::Frame => b
                 .set_column_dictionary_enabled(col(), false)
+                .set_column_encoding(col(), Encoding::PLAIN)
                 .set_column_compression(col(), Compression::UNCOMPRESSED)
                 .set_column_statistics_enabled(col(), EnabledStatistics::None),
         };
@@ -350,36 +357,49 @@ pub(crate) fn rows_to_batch(
     let opt_f32s = |f: fn(&SliceRow) -> Option<f32>| -> ArrayRef {
         Arc::new(Float32Array::from_iter(rows.iter().map(f)))
     };
-    let cols: Vec<ArrayRef> = vec![
-        Arc::new(StringArray::from_iter_values(
-            rows.iter().map(|r| r.channel.as_str()),
-        )),
-        Arc::new(
-            TimestampNanosecondArray::from_iter_values(rows.iter().map(|r| r.start_ns))
-                .with_timezone("UTC"),
-        ),
-        Arc::new(Int32Array::from_iter_values(
-            rows.iter().map(|r| r.samples as i32),
-        )),
-        Arc::new(Int32Array::from_iter_values(
-            rows.iter().map(|r| r.block as i32),
-        )),
-        f32s(|r| r.error_rms),
-        f32s(|r| r.budget_use),
-        opt_f32s(|r| r.fundamental_hz),
-        f32s(|r| r.rms),
-        opt_f32s(|r| r.h1_amp),
-        opt_f32s(|r| r.thd),
-        Arc::new(BooleanArray::from_iter(rows.iter().map(|r| r.event))),
-        Arc::new(BinaryArray::from_iter(rows.iter().map(|r| {
-            r.payload.as_ref().map(|p| {
-                let mut v = Vec::with_capacity(p.len() + 4);
-                v.extend_from_slice(p);
-                v.extend_from_slice(&r.checksum.unwrap_or(0).to_le_bytes());
-                v
-            })
-        }))),
-    ];
+    let column = |name: &str| -> Result<ArrayRef, String> {
+        Ok(match name {
+            "channel" => Arc::new(StringArray::from_iter_values(
+                rows.iter().map(|r| r.channel.as_str()),
+            )),
+            "start" => Arc::new(
+                TimestampNanosecondArray::from_iter_values(rows.iter().map(|r| r.start_ns))
+                    .with_timezone("UTC"),
+            ),
+            "samples" => Arc::new(Int32Array::from_iter_values(
+                rows.iter().map(|r| r.samples as i32),
+            )),
+            "block" => Arc::new(Int32Array::from_iter_values(
+                rows.iter().map(|r| r.block as i32),
+            )),
+            "error_rms" => f32s(|r| r.error_rms),
+            "budget_use" => f32s(|r| r.budget_use),
+            "fundamental_hz" => opt_f32s(|r| r.fundamental_hz),
+            "rms" => f32s(|r| r.rms),
+            "h1_amp" => opt_f32s(|r| r.h1_amp),
+            "thd" => opt_f32s(|r| r.thd),
+            "event" => Arc::new(BooleanArray::from_iter(rows.iter().map(|r| r.event))),
+            "payload" => Arc::new(BinaryArray::from_iter(rows.iter().map(|r| {
+                r.payload.as_ref().map(|p| {
+                    let mut v = Vec::with_capacity(p.len() + 4);
+                    v.extend_from_slice(p);
+                    v.extend_from_slice(&r.checksum.unwrap_or(0).to_le_bytes());
+                    v
+                })
+            }))),
+            other => return Err(format!("no column `{other}` in this build")),
+        })
+    };
+    if !schema.fields().iter().any(|f| f.name() == "event")
+        && rows.iter().any(|r| r.event.is_some())
+    {
+        return Err("rows mark events but the archive has no `event` column".into());
+    }
+    let cols = schema
+        .fields()
+        .iter()
+        .map(|f| column(f.name()))
+        .collect::<Result<Vec<_>, _>>()?;
     RecordBatch::try_new(schema.clone(), cols).map_err(|e| e.to_string())
 }
 

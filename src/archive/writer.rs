@@ -41,8 +41,9 @@ pub struct ArchiveWriter {
 }
 
 impl ArchiveWriter {
-    /// Start writing `out` (under a temporary name in the same folder).
-    pub fn create(out: &Path) -> Result<Self> {
+    /// Start writing `out` (under a temporary name in the same folder); `events`: whether
+    /// the archive has the `event` column (event capture on).
+    pub fn create(out: &Path, events: bool) -> Result<Self> {
         check_output(out)?;
         check_output(&digest_path(out))?;
         let tmp = temp_path(out);
@@ -50,7 +51,7 @@ impl ArchiveWriter {
             file: out.to_path_buf(),
             source: e,
         })?;
-        let schema = Arc::new(archive_schema());
+        let schema = Arc::new(archive_schema(events));
         // No embedded Arrow schema: the Parquet logical types already say everything a reader
         // needs (UTC nanosecond times), and it cost 1.6 kB.
         let writer = ArrowWriter::try_new_with_options(

@@ -484,7 +484,7 @@ pub(crate) fn encode_pass(
     } else {
         Prefetch::start(src)
     };
-    let mut writer = ArchiveWriter::create(out)?;
+    let mut writer = ArchiveWriter::create(out, settings.codec.events)?;
     let mut channels: Vec<ChannelEncoder> = Vec::new();
     let mut gathered: Vec<ChannelSamples> = Vec::new();
     let mut jobs: Vec<BlockJob> = Vec::new();

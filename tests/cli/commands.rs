@@ -342,6 +342,39 @@ fn fundamental_none_cuts_200_ms_blocks() {
     }
 }
 
+/// The container's own cost, for the small snapshots condition monitoring keeps: a
+/// one-segment source's archive is at most 1.5 kB beside its payload (the lean-archive
+/// target, common practice for a 1–10 s snapshot not to be outweighed by its wrapper), and
+/// without event capture it has no `event` column (README, The archive).
+#[test]
+fn a_one_segment_archive_costs_at_most_1_5_kb_beside_its_payload() {
+    let s = Lab::new();
+    let src = s.path("src.parquet");
+    let c = Chan::wave("fh.p1.ia", VType::F32, 2000, FS, 48.0, 1.0, 210);
+    write_long(
+        &src,
+        &[c],
+        Spec::new(TimeKind::Ts(TimeUnit::Nanosecond, Some("UTC"))),
+        &Columns::default(),
+    );
+    let arch = s.path("a.parquet");
+    s.encode(&src, &arch, &["--fundamental", "none"]).expect(0);
+    assert_eq!(archive_segments(&arch).len(), 1);
+    let j = s.run(&["inspect", ps(&arch), "--json"]).expect(0).json();
+    let (total, payload) = (
+        j["bytes"]["total"].as_u64().unwrap(),
+        j["bytes"]["payload"].as_u64().unwrap(),
+    );
+    assert_eq!(total, std::fs::metadata(&arch).unwrap().len());
+    assert!(
+        total - payload <= 1500,
+        "{total} B in all, {payload} B payload"
+    );
+    let t = read_table(&arch);
+    assert!(t.batch.column_by_name("event").is_none());
+    assert!(t.batch.column_by_name("rms").is_some());
+}
+
 // ── --json ──
 
 #[test]
