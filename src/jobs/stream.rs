@@ -305,23 +305,45 @@ impl Drop for InFlight {
     }
 }
 
+/// Whether a pass keeps to its calling thread (a pool of one thread, `--threads 1`: a
+/// one-core task, such as a shard on a one-core executor, expects one core) or overlaps
+/// reading, planning and fitting on threads of their own. Decided once per pass.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub(crate) enum Concurrency {
+    /// Read, plan and fit on the calling thread.
+    Inline,
+    /// Read one batch ahead on a thread of its own; fit on the pool beside the planner.
+    Overlapped,
+}
+
+impl Concurrency {
+    /// From the current rayon pool.
+    pub(crate) fn of_pool() -> Self {
+        if rayon::current_num_threads() <= 1 {
+            Concurrency::Inline
+        } else {
+            Concurrency::Overlapped
+        }
+    }
+}
+
 /// A batch of blocks being fitted on the pool, or already fitted on the caller's thread.
 pub(crate) enum Fitting {
     /// Fitting on the pool, from a thread of its own.
     Running(std::thread::JoinHandle<Result<Vec<EncodedBlock>>>),
-    /// Fitted (a pool of one thread: see [`start_fit`]).
+    /// Fitted on the calling thread ([`Concurrency::Inline`]).
     Done(Result<Vec<EncodedBlock>>),
 }
 
 /// Hand the waiting blocks to the thread pool without waiting for them. The same blocks as
-/// [`fit_jobs`] (each depends only on its own samples and settings). With a pool of one
-/// thread (`--threads 1`) they are fitted here and now: one thread then does all the work, as
-/// a one-core task (a shard on a one-core executor) expects.
+/// [`fit_jobs`] (each depends only on its own samples and settings). [`Concurrency::Inline`]
+/// fits them here and now.
 pub(crate) fn start_fit(
     source: &Path,
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
     settings: &Arc<Settings>,
+    concurrency: Concurrency,
 ) -> Fitting {
     let work: Vec<(BlockJob, JobChannel)> = std::mem::take(jobs)
         .into_iter()
@@ -344,7 +366,7 @@ pub(crate) fn start_fit(
             source: e,
         })
     };
-    if rayon::current_num_threads() <= 1 {
+    if concurrency == Concurrency::Inline {
         return Fitting::Done(work.into_iter().map(fit).collect());
     }
     Fitting::Running(std::thread::spawn(move || {
@@ -359,9 +381,14 @@ pub(crate) fn fit_jobs(
     jobs: &mut Vec<BlockJob>,
     channels: &[ChannelEncoder],
     settings: &Arc<Settings>,
+    concurrency: Concurrency,
     ordered: &mut Ordered,
 ) -> Result<()> {
-    InFlight::new(start_fit(source, jobs, channels, settings), i64::MAX).finish(ordered)
+    InFlight::new(
+        start_fit(source, jobs, channels, settings, concurrency),
+        i64::MAX,
+    )
+    .finish(ordered)
 }
 
 /// Write the blocks that start before `watermark` (all when `None`), in order.
@@ -477,12 +504,10 @@ pub(crate) fn encode_pass(
     let total_rows = src.total_rows;
     // The channels known from the schema (wide layout); a long layout's arrive with batches.
     let mut infos: Vec<ChannelInfo> = src.schema.channels.clone();
-    // Reading runs one batch ahead on its own thread, beside planning and fitting, unless
-    // the pool has one thread.
-    let mut reader = if rayon::current_num_threads() <= 1 {
-        Prefetch::inline(src)
-    } else {
-        Prefetch::start(src)
+    let concurrency = Concurrency::of_pool();
+    let mut reader = match concurrency {
+        Concurrency::Inline => Prefetch::inline(src),
+        Concurrency::Overlapped => Prefetch::start(src),
     };
     let mut writer = ArchiveWriter::create(out, settings.codec.events)?;
     let mut channels: Vec<ChannelEncoder> = Vec::new();
@@ -553,7 +578,7 @@ pub(crate) fn encode_pass(
                 .filter_map(|j| j.run.times.first())
                 .min()
                 .copied();
-            let handle = start_fit(source, &mut jobs, &channels, &shared_settings);
+            let handle = start_fit(source, &mut jobs, &channels, &shared_settings, concurrency);
             let watermark = channels
                 .iter()
                 .map(|c| c.front_time())
@@ -604,7 +629,14 @@ pub(crate) fn encode_pass(
                     Err(StreamError::Fatal(e)) => return Err(e),
                 }
                 if jobs.iter().map(|j| j.run.times.len()).sum::<usize>() >= FIT_BATCH_SAMPLES {
-                    fit_jobs(source, &mut jobs, &channels, &shared_settings, &mut ordered)?;
+                    fit_jobs(
+                        source,
+                        &mut jobs,
+                        &channels,
+                        &shared_settings,
+                        concurrency,
+                        &mut ordered,
+                    )?;
                 }
             }
             channels[ci].finish(ci, settings, &mut jobs);
@@ -614,7 +646,14 @@ pub(crate) fn encode_pass(
         c.finish(ci, settings, &mut jobs);
     }
     crate::stop::check()?;
-    fit_jobs(source, &mut jobs, &channels, &shared_settings, &mut ordered)?;
+    fit_jobs(
+        source,
+        &mut jobs,
+        &channels,
+        &shared_settings,
+        concurrency,
+        &mut ordered,
+    )?;
     flush(
         &mut ordered,
         None,
