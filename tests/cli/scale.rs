@@ -298,8 +298,9 @@ fn a_killed_shard_leaves_no_part_and_its_rerun_publishes_it() {
     let s = Lab::new();
     let env = moto.env();
     moto.py("s3.create_bucket(Bucket=bucket)\n");
-    // One source big enough that its shard is still encoding when it is killed.
-    write_night(&s.path("night"), 1, 1_500_000);
+    // One source big enough that its shard, on one thread, is still encoding when it is
+    // killed (about 4 s of work on the 2-core machine CI runs on).
+    write_night(&s.path("night"), 1, 2_500_000);
     moto.upload(&s.path("night"), "night");
     let job = job_file(
         &s,
@@ -312,7 +313,7 @@ fn a_killed_shard_leaves_no_part_and_its_rerun_publishes_it() {
     s.run_env(&["plan", ps(&job), "--out", &plan], &env)
         .expect(0);
     let mut child = Command::new(BIN)
-        .args(["run", &plan, "--shard", "0/1"])
+        .args(["--threads", "1", "run", &plan, "--shard", "0/1"])
         .envs(env.iter().map(|(k, v)| (k.as_str(), v.as_str())))
         .stdout(Stdio::null())
         .stderr(Stdio::null())
