@@ -194,21 +194,40 @@ impl ChannelMeta {
             FundamentalSource::Estimated => "estimated",
             FundamentalSource::NotPeriodic => "not_periodic",
         };
+        // What was estimated is recorded to 7 significant digits (a frequency) or 4 (a
+        // ratio): the digits past them are noise of the estimate, and in a small archive
+        // they cost more than its payload. A given fundamental is kept as given.
+        let (hz, ratio) = (|x: f64| significant(x, 7), |x: f64| significant(x, 4));
         if self.fundamental.is_empty() {
             self.fundamental = kind.to_string();
-            self.fundamental_hz = plan.fundamental.map(|e| e.hz);
-            self.confidence = plan.fundamental.map(|e| e.confidence);
-            self.runner_up_hz = plan.runner_up.map(|(e, r)| (e.hz, r));
+            self.fundamental_hz = plan.fundamental.map(|e| match plan.source {
+                FundamentalSource::Given => e.hz,
+                _ => hz(e.hz),
+            });
+            self.confidence = plan.fundamental.map(|e| ratio(e.confidence));
+            self.runner_up_hz = plan.runner_up.map(|(e, r)| (hz(e.hz), ratio(r)));
         } else if self.fundamental != kind {
             self.fundamental = "mixed".into();
         }
         if let Some((lo, hi)) = plan.tracked_range {
+            let (lo, hi) = (hz(lo), hz(hi));
             self.tracked_hz = Some(match self.tracked_hz {
                 Some((a, b)) => (a.min(lo), b.max(hi)),
                 None => (lo, hi),
             });
         }
     }
+}
+
+/// `x` to `digits` significant decimal digits (as printed, so its JSON is that short);
+/// non-finite values as they are.
+fn significant(x: f64, digits: usize) -> f64 {
+    if !x.is_finite() || x == 0.0 {
+        return x;
+    }
+    format!("{:.*e}", digits.saturating_sub(1), x)
+        .parse()
+        .unwrap_or(x)
 }
 
 /// The archive's file-level metadata.
@@ -312,6 +331,22 @@ mod tests {
         let h = sha2::Sha256::digest(META_DICTIONARY);
         let hex: String = h.iter().map(|b| format!("{b:02x}")).collect();
         assert_eq!(hex, FROZEN_DICTIONARY_SHA256);
+    }
+
+    #[test]
+    fn significant_digits_are_what_json_prints() {
+        // Against std's shortest round-trip printing (Rust reference, `Display` for f64).
+        assert_eq!(
+            significant(3.1687525150722396e-8, 7).to_string(),
+            "0.00000003168753"
+        );
+        assert_eq!(significant(0.96085326792923, 4).to_string(), "0.9609");
+        assert_eq!(significant(49.969_712_345, 7).to_string(), "49.96971");
+        assert_eq!(significant(-1234.5678, 4).to_string(), "-1235");
+        assert_eq!(significant(0.0, 7), 0.0);
+        assert!(significant(f64::NAN, 7).is_nan());
+        let json = serde_json::to_string(&significant(3.695907908014233, 4)).unwrap();
+        assert_eq!(json, "3.696");
     }
 
     const FROZEN_DICTIONARY_SHA256: &str =
