@@ -22,7 +22,8 @@
 //! What each segment is (samples, basis, order, cycles) is in the frame only
 //! ([`series::segment_list`]). A segment's budget is the channel's rule in the metadata
 //! ([`ChannelMeta::budget`]) resolved on the RMS of its source's finite values. Query columns
-//! keep 16 significant bits. File metadata holds `cyclarc.format` (`MAJOR.MINOR`, now
+//! keep 16 significant bits; `error_rms` and `budget_use` 8, rounded up (an upper bound on
+//! the truth that still meets the budget wherever the segment did). File metadata holds `cyclarc.format` (`MAJOR.MINOR`, now
 //! [`FORMAT_VERSION`]) and `cyclarc.meta`: JSON (writer version, source name, size and
 //! SHA-256, resolved settings, source schema, channels) as one zstd frame with its content
 //! checksum, in base64. A reader refuses a newer major version, and format 1 (one row per

@@ -68,9 +68,11 @@ pub struct SliceRow {
     pub samples: u32,
     /// Block number.
     pub block: u32,
-    /// The largest recorded error of the row's segments (rounded up to 16 significant bits).
+    /// The largest recorded error of the row's segments, rounded up to 8 significant bits
+    /// but never past the budget of a segment that met it.
     pub error_rms: f32,
-    /// The largest error over budget of the row's lossy segments (rounded up; 0 when all are
+    /// The largest error over budget of the row's lossy segments (rounded up to 8
+    /// significant bits, never past 1 for a segment that met its budget; 0 when all are
     /// lossless). Each segment's budget is the channel's rule (in the metadata) resolved on
     /// the RMS of the segment's source values.
     pub budget_use: f32,
@@ -108,6 +110,26 @@ pub fn compact_up(v: f64) -> f32 {
         r
     } else {
         f
+    }
+}
+
+/// A non-negative `v` rounded up to `bits` significant bits (`v` itself when it has no more,
+/// or is not finite).
+fn round_up_bits(v: f32, bits: u32) -> f32 {
+    if !v.is_finite() || v <= 0.0 {
+        return v;
+    }
+    let drop = 24u32.saturating_sub(bits);
+    let mask = (1u32 << drop) - 1;
+    let b = v.to_bits();
+    if b & mask == 0 {
+        return v;
+    }
+    let r = f32::from_bits((b | mask).wrapping_add(1));
+    if r.is_finite() {
+        r
+    } else {
+        v
     }
 }
 
@@ -153,9 +175,19 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
                 h2 += p * (t as f64).powi(2);
             }
         }
-        error = error.max(s.error_rms);
+        // Recorded to 8 significant bits, rounded up but never past the segment's budget (nor
+        // a use past 1 where the segment met it): still a bound on the true error, within
+        // the promise, at a byte a row less than 16 bits.
+        let e = round_up_bits(s.error_rms, 8);
+        error = error.max(if s.error_rms <= s.budget_rms {
+            e.min(s.budget_rms)
+        } else {
+            e
+        });
         if s.budget_rms > 0.0 {
-            used = used.max(s.error_rms as f64 / s.budget_rms as f64);
+            let u = s.error_rms as f64 / s.budget_rms as f64;
+            let up = round_up_bits(compact_up(u), 8) as f64;
+            used = used.max(if u <= 1.0 { up.min(1.0) } else { up });
         }
     }
     SliceRow {
@@ -163,8 +195,8 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
         start_ns: segs[0].start_ns,
         samples: segs.iter().map(|s| s.samples).sum(),
         block,
-        error_rms: compact_up(error as f64),
-        budget_use: compact_up(used),
+        error_rms: error,
+        budget_use: used as f32,
         fundamental_hz: (fw > 0.0).then(|| compact(fsum / fw)),
         rms: compact((ms / n.max(1.0)).sqrt()),
         h1_amp: (aw > 0.0).then(|| compact((a2 / aw).sqrt())),
@@ -488,4 +520,52 @@ pub(crate) fn batch_to_rows(b: &RecordBatch, out: &mut Vec<SliceRow>) -> Result<
         });
     }
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::model::Basis;
+
+    fn segment(start_ns: i64, budget_rms: f32, error_rms: f32) -> SegmentSummary {
+        SegmentSummary {
+            start_ns,
+            samples: 100,
+            basis: Basis::Fourier,
+            order: Some(3),
+            cycles: Some(1),
+            budget_rms,
+            error_rms,
+            fundamental_hz: Some(50.0),
+            rms: 1.0,
+            harmonics: Vec::new(),
+            thd: None,
+            event: None,
+        }
+    }
+
+    #[test]
+    fn recorded_errors_are_bounds_within_the_budget_at_8_bits() {
+        // An error just under its budget: 8 bits rounded up would pass the budget, so the
+        // row records the budget itself (still ≥ the error); a use of at most 1.
+        let b = 0.1f32;
+        let e = b.next_down();
+        let rows = slice_rows("a", 0, &[segment(0, b, e)]);
+        assert_eq!(rows.len(), 1);
+        assert!(rows[0].error_rms >= e && rows[0].error_rms <= b);
+        assert!(rows[0].budget_use as f64 >= e as f64 / b as f64);
+        assert!(rows[0].budget_use <= 1.0);
+        // Well under budget: the next value with 8 significant bits at or above the error.
+        let e = 0.0123f32;
+        let rows = slice_rows("a", 0, &[segment(0, b, e)]);
+        let r = rows[0].error_rms;
+        assert!(r >= e && r < e * (1.0 + 1.0 / 128.0));
+        assert_eq!(r.to_bits() & 0xffff, 0, "8 significant bits");
+        // The row takes the largest of its segments; exact values stay exact.
+        let rows = slice_rows("a", 0, &[segment(0, 1.0, 0.25), segment(10, 1.0, 0.5)]);
+        assert_eq!((rows[0].error_rms, rows[0].budget_use), (0.5, 0.5));
+        // Lossless segments: 0 recorded, 0 used.
+        let rows = slice_rows("a", 0, &[segment(0, 0.0, 0.0)]);
+        assert_eq!((rows[0].error_rms, rows[0].budget_use), (0.0, 0.0));
+    }
 }
