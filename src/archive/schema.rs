@@ -16,7 +16,7 @@ use parquet::file::properties::{EnabledStatistics, WriterProperties, WriterVersi
 use parquet::schema::types::ColumnPath;
 
 use crate::codec::encode::{compact, SegmentSummary};
-use crate::codec::quant::error_to_f32;
+use crate::codec::quant::{error_to_f32, round_up_bits};
 
 /// Longest time from a row's first segment to the start of its last one (ns): rows start at
 /// most a second apart wherever segments are shorter than that, so the query columns keep a
@@ -97,40 +97,7 @@ pub struct SliceRow {
 /// Round a positive value up to 16 significant bits (see [`compact`]), so a recorded error
 /// or ratio never understates.
 pub fn compact_up(v: f64) -> f32 {
-    let f = error_to_f32(v);
-    if !f.is_finite() || f <= 0.0 {
-        return f;
-    }
-    let b = f.to_bits();
-    if b & 0xff == 0 {
-        return f;
-    }
-    let r = f32::from_bits((b | 0xff).wrapping_add(1));
-    if r.is_finite() {
-        r
-    } else {
-        f
-    }
-}
-
-/// A non-negative `v` rounded up to `bits` significant bits (`v` itself when it has no more,
-/// or is not finite).
-fn round_up_bits(v: f32, bits: u32) -> f32 {
-    if !v.is_finite() || v <= 0.0 {
-        return v;
-    }
-    let drop = 24u32.saturating_sub(bits);
-    let mask = (1u32 << drop) - 1;
-    let b = v.to_bits();
-    if b & mask == 0 {
-        return v;
-    }
-    let r = f32::from_bits((b | mask).wrapping_add(1));
-    if r.is_finite() {
-        r
-    } else {
-        v
-    }
+    round_up_bits(error_to_f32(v), 16)
 }
 
 /// Group one block's segments into rows: a row takes segments while they start less than
@@ -186,7 +153,7 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
         });
         if s.budget_rms > 0.0 {
             let u = s.error_rms as f64 / s.budget_rms as f64;
-            let up = round_up_bits(compact_up(u), 8) as f64;
+            let up = round_up_bits(error_to_f32(u), 8) as f64;
             used = used.max(if u <= 1.0 { up.min(1.0) } else { up });
         }
     }

@@ -142,16 +142,7 @@ pub(crate) fn short_down(v: f32) -> f32 {
 
 /// `v` (positive, finite) rounded up to 8 significant bits.
 fn short_up(v: f32) -> f32 {
-    let b = v.to_bits();
-    if b & SHORT_MASK == 0 {
-        return v;
-    }
-    let r = f32::from_bits((b | SHORT_MASK).wrapping_add(1));
-    if r.is_finite() {
-        r
-    } else {
-        v
-    }
+    crate::codec::quant::round_up_bits(v, 8)
 }
 
 fn try_step(

@@ -176,6 +176,25 @@ pub fn budget_to_f32(b: f64) -> f64 {
     }
 }
 
+/// A non-negative `v` rounded up to `bits` (1–24) significant bits: `v` itself when it has
+/// no more, is 0 or is not finite, or when rounding up would overflow.
+pub fn round_up_bits(v: f32, bits: u32) -> f32 {
+    if !v.is_finite() || v <= 0.0 {
+        return v;
+    }
+    let mask = (1u32 << 24u32.saturating_sub(bits.max(1))) - 1;
+    let b = v.to_bits();
+    if b & mask == 0 {
+        return v;
+    }
+    let r = f32::from_bits((b | mask).wrapping_add(1));
+    if r.is_finite() {
+        r
+    } else {
+        v
+    }
+}
+
 /// Round a recorded error up to the f32 that is not below it.
 pub fn error_to_f32(e: f64) -> f32 {
     let f = e as f32;
