@@ -26,22 +26,20 @@ use object_store::{
 
 use crate::error::{Error, Result};
 
-/// The runtime every storage call runs on.
-fn runtime() -> &'static tokio::runtime::Runtime {
-    static RT: OnceLock<tokio::runtime::Runtime> = OnceLock::new();
+/// The runtime every storage call runs on, started on first use; why it could not start
+/// (the process could not spawn its threads), then and on every later call.
+fn runtime() -> std::result::Result<&'static tokio::runtime::Runtime, &'static str> {
+    static RT: OnceLock<std::result::Result<tokio::runtime::Runtime, String>> = OnceLock::new();
     RT.get_or_init(|| {
         tokio::runtime::Builder::new_multi_thread()
             .worker_threads(2)
             .thread_name("cyclarc-storage")
             .enable_all()
             .build()
-            // Without a runtime no storage call can run: a broken invariant of the process.
-            .expect("the storage runtime starts")
+            .map_err(|e| format!("the storage runtime did not start: {e}"))
     })
-}
-
-fn block_on<F: std::future::Future>(f: F) -> F::Output {
-    runtime().block_on(f)
+    .as_ref()
+    .map_err(String::as_str)
 }
 
 /// A place for one object (or a folder of them): a local path or a URL.
@@ -197,23 +195,35 @@ impl Location {
         }
     }
 
+    /// Run a storage call to completion; an error names this location when the runtime
+    /// cannot start (retryable: it is the process's resources, not the object).
+    fn block_on<F: std::future::Future>(&self, f: F) -> Result<F::Output> {
+        let rt = runtime().map_err(|reason| Error::Storage {
+            location: self.text.clone(),
+            reason: reason.to_string(),
+            retryable: true,
+        })?;
+        Ok(rt.block_on(f))
+    }
+
     /// The object's bytes.
     pub fn get(&self) -> Result<Bytes> {
-        block_on(async {
+        self.block_on(async {
             let r = self.store.get(&self.path).await?;
             r.bytes().await
-        })
+        })?
         .map_err(|e| classify(&self.text, e))
     }
 
     /// A range of the object's bytes.
     pub fn get_range(&self, range: std::ops::Range<u64>) -> Result<Bytes> {
-        block_on(self.store.get_range(&self.path, range)).map_err(|e| classify(&self.text, e))
+        self.block_on(self.store.get_range(&self.path, range))?
+            .map_err(|e| classify(&self.text, e))
     }
 
     /// Size and version tag, or `None` when there is no object.
     pub fn head(&self) -> Result<Option<(u64, Option<String>)>> {
-        match block_on(self.store.head(&self.path)) {
+        match self.block_on(self.store.head(&self.path))? {
             Ok(m) => Ok(Some((m.size, m.e_tag))),
             Err(object_store::Error::NotFound { .. }) => Ok(None),
             Err(e) => Err(classify(&self.text, e)),
@@ -232,10 +242,10 @@ impl Location {
             mode: PutMode::Create,
             ..Default::default()
         };
-        match block_on(
+        match self.block_on(
             self.store
                 .put_opts(&self.path, PutPayload::from_bytes(bytes), opts),
-        ) {
+        )? {
             Ok(_) => Ok(Put::Created),
             Err(object_store::Error::AlreadyExists { .. }) => Ok(Put::Exists),
             Err(e) => Err(classify(&self.text, e)),
@@ -268,9 +278,9 @@ impl Location {
     /// pattern, in name order; as in a shell, `*` and `?` do not match `/`.
     pub fn list_matching(&self, pattern: &glob::Pattern) -> Result<Vec<Found>> {
         let prefix = self.path.clone();
-        let listed: Vec<object_store::ObjectMeta> =
-            block_on(self.store.list(Some(&prefix)).try_collect())
-                .map_err(|e| classify(&self.text, e))?;
+        let listed: Vec<object_store::ObjectMeta> = self
+            .block_on(self.store.list(Some(&prefix)).try_collect())?
+            .map_err(|e| classify(&self.text, e))?;
         let base = prefix.as_ref().len();
         let mut out: Vec<Found> = listed
             .into_iter()
