@@ -27,48 +27,73 @@ pub struct Batch {
     pub new_channels: Vec<ChannelInfo>,
 }
 
-/// A source being read on its own thread.
+/// A source read batch by batch, each with the channels it met first; nothing after a
+/// failed batch.
+struct Reader {
+    src: Source,
+    /// Channels the schema held before the last batch.
+    known: usize,
+    done: bool,
+}
+
+impl Reader {
+    fn new(src: Source) -> Self {
+        let known = src.schema.channels.len();
+        Reader {
+            src,
+            known,
+            done: false,
+        }
+    }
+
+    fn next(&mut self) -> Option<Batch> {
+        if self.done {
+            return None;
+        }
+        let Some(chunks) = self.src.next_chunks() else {
+            self.done = true;
+            return None;
+        };
+        self.done = chunks.is_err();
+        let new_channels = self.src.schema.channels[self.known..].to_vec();
+        self.known = self.src.schema.channels.len();
+        Some(Batch {
+            chunks,
+            new_channels,
+        })
+    }
+}
+
+/// A source being read on its own thread, or on the consumer's.
 pub struct Prefetch {
     rx: Option<Receiver<Batch>>,
     thread: Option<JoinHandle<Source>>,
-    /// Read by the consumer itself ([`Prefetch::inline`]): the source, the channels it knew,
-    /// and whether it is done.
-    here: Option<(Source, usize, bool)>,
+    /// Read by the consumer itself ([`Prefetch::inline`]).
+    here: Option<Reader>,
 }
 
 impl Prefetch {
     /// Read `src` on the consumer's own thread, a batch when asked: the same batches as
     /// [`Prefetch::start`], for a job that must keep to one thread.
     pub fn inline(src: Source) -> Prefetch {
-        let known = src.schema.channels.len();
         Prefetch {
             rx: None,
             thread: None,
-            here: Some((src, known, false)),
+            here: Some(Reader::new(src)),
         }
     }
 
     /// Start reading `src` on a new thread.
-    pub fn start(mut src: Source) -> Prefetch {
+    pub fn start(src: Source) -> Prefetch {
         let (tx, rx) = sync_channel(PREFETCH_BATCHES);
         let thread = std::thread::spawn(move || {
-            let mut known = src.schema.channels.len();
-            while let Some(chunks) = src.next_chunks() {
-                let failed = chunks.is_err();
-                let new_channels = src.schema.channels[known..].to_vec();
-                known = src.schema.channels.len();
-                if tx
-                    .send(Batch {
-                        chunks,
-                        new_channels,
-                    })
-                    .is_err()
-                    || failed
-                {
+            let mut reader = Reader::new(src);
+            while let Some(batch) = reader.next() {
+                if tx.send(batch).is_err() {
                     break;
                 }
             }
-            src
+            reader.src
         });
         Prefetch {
             rx: Some(rx),
@@ -79,23 +104,10 @@ impl Prefetch {
 
     /// The next batch, or None at the end of the source (or after a failed batch).
     pub fn next_batch(&mut self) -> Option<Batch> {
-        if let Some((src, known, done)) = &mut self.here {
-            if *done {
-                return None;
-            }
-            let Some(chunks) = src.next_chunks() else {
-                *done = true;
-                return None;
-            };
-            *done = chunks.is_err();
-            let new_channels = src.schema.channels[*known..].to_vec();
-            *known = src.schema.channels.len();
-            return Some(Batch {
-                chunks,
-                new_channels,
-            });
+        match &mut self.here {
+            Some(reader) => reader.next(),
+            None => self.rx.as_ref()?.recv().ok(),
         }
-        self.rx.as_ref()?.recv().ok()
     }
 
     /// Stop reading and hand the source back (its schema holds every channel met).
@@ -104,8 +116,8 @@ impl Prefetch {
     }
 
     fn stop(&mut self) -> Option<Source> {
-        if let Some((src, _, _)) = self.here.take() {
-            return Some(src);
+        if let Some(reader) = self.here.take() {
+            return Some(reader.src);
         }
         // Dropping the receiver ends a reader blocked on a full channel.
         self.rx = None;
