@@ -100,6 +100,18 @@ pub fn compact_up(v: f64) -> f32 {
     round_up_bits(error_to_f32(v), 16)
 }
 
+/// A recorded error or budget use: `v` rounded up to 8 significant bits (a byte a row less
+/// than 16), but never past `promise` when `v` met it — still a bound on the truth, and
+/// still within the promise.
+fn recorded_up(v: f32, promise: f32) -> f32 {
+    let up = round_up_bits(v, 8);
+    if v <= promise {
+        up.min(promise)
+    } else {
+        up
+    }
+}
+
 /// Group one block's segments into rows: a row takes segments while they start less than
 /// [`ROW_SPAN_NS`] after its first one. Payload and checksum are left empty.
 pub fn slice_rows(channel: &str, block: u32, segs: &[SegmentSummary]) -> Vec<SliceRow> {
@@ -124,7 +136,7 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
     let (mut fw, mut fsum) = (0.0f64, 0.0f64);
     let (mut aw, mut a2) = (0.0f64, 0.0f64);
     let (mut tw, mut h2) = (0.0f64, 0.0f64);
-    let (mut error, mut used) = (0.0f32, 0.0f64);
+    let (mut error, mut used) = (0.0f32, 0.0f32);
     for s in segs {
         let w = s.samples as f64;
         n += w;
@@ -142,19 +154,10 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
                 h2 += p * (t as f64).powi(2);
             }
         }
-        // Recorded to 8 significant bits, rounded up but never past the segment's budget (nor
-        // a use past 1 where the segment met it): still a bound on the true error, within
-        // the promise, at a byte a row less than 16 bits.
-        let e = round_up_bits(s.error_rms, 8);
-        error = error.max(if s.error_rms <= s.budget_rms {
-            e.min(s.budget_rms)
-        } else {
-            e
-        });
+        error = error.max(recorded_up(s.error_rms, s.budget_rms));
         if s.budget_rms > 0.0 {
-            let u = s.error_rms as f64 / s.budget_rms as f64;
-            let up = round_up_bits(error_to_f32(u), 8) as f64;
-            used = used.max(if u <= 1.0 { up.min(1.0) } else { up });
+            let u = error_to_f32(s.error_rms as f64 / s.budget_rms as f64);
+            used = used.max(recorded_up(u, 1.0));
         }
     }
     SliceRow {
@@ -163,7 +166,7 @@ fn summarize(channel: &str, block: u32, segs: &[SegmentSummary]) -> SliceRow {
         samples: segs.iter().map(|s| s.samples).sum(),
         block,
         error_rms: error,
-        budget_use: used as f32,
+        budget_use: used,
         fundamental_hz: (fw > 0.0).then(|| compact(fsum / fw)),
         rms: compact((ms / n.max(1.0)).sqrt()),
         h1_amp: (aw > 0.0).then(|| compact((a2 / aw).sqrt())),
