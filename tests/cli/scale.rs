@@ -40,6 +40,32 @@ fn have(what: &str, cmd: &mut Command) -> bool {
     ok
 }
 
+/// Whether pyspark (and a Java runtime) is there; see [`have`].
+fn have_pyspark() -> bool {
+    have(
+        "pyspark (pip install pyspark) with a Java runtime",
+        Command::new("python3").args(["-c", "import pyspark"]),
+    )
+}
+
+/// Run a Python script with Spark bound to 127.0.0.1; its standard output, after asserting
+/// that it succeeded.
+fn python_ok(script: &Path, args: &[&Path]) -> String {
+    let out = Command::new("python3")
+        .arg(script)
+        .args(args)
+        .env("SPARK_LOCAL_IP", "127.0.0.1")
+        .output()
+        .expect("python3 runs");
+    let stdout = String::from_utf8_lossy(&out.stdout).into_owned();
+    assert!(
+        out.status.success(),
+        "{stdout}\n{}",
+        String::from_utf8_lossy(&out.stderr)
+    );
+    stdout
+}
+
 /// moto's S3 server on a free port of 127.0.0.1; stopped (by its PID) when dropped.
 struct Moto {
     child: Child,
@@ -196,10 +222,7 @@ fn manifest_shas(s: &Lab, env: &[(String, String)], plan: &str) -> Vec<String> {
 #[test]
 fn spark_runs_a_plan_over_s3_retries_a_failed_task_and_commits_once() {
     let Some(moto) = Moto::start() else { return };
-    if !have(
-        "pyspark (pip install pyspark) with a Java runtime",
-        Command::new("python3").args(["-c", "import pyspark"]),
-    ) {
+    if !have_pyspark() {
         return;
     }
     let s = Lab::new();
@@ -424,24 +447,11 @@ fn a_thousand_objects_in_sixteen_shard_processes_do_a_single_runs_work() {
 #[test]
 fn the_spark_drivers_own_tests_pass() {
     // The driver's retry and no-commit rules, against a stand-in binary (its own unittest).
-    if !have(
-        "pyspark (pip install pyspark) with a Java runtime",
-        Command::new("python3").args(["-c", "import pyspark"]),
-    ) {
+    if !have_pyspark() {
         return;
     }
     let test = Path::new(env!("CARGO_MANIFEST_DIR")).join("pipelines/spark/test_cyclarc_spark.py");
-    let out = Command::new("python3")
-        .arg(&test)
-        .env("SPARK_LOCAL_IP", "127.0.0.1")
-        .output()
-        .expect("python3 runs");
-    assert!(
-        out.status.success(),
-        "{}\n{}",
-        String::from_utf8_lossy(&out.stdout),
-        String::from_utf8_lossy(&out.stderr)
-    );
+    python_ok(&test, &[]);
 }
 
 #[test]
@@ -451,10 +461,7 @@ fn spark_reads_an_archives_query_columns_as_the_parquet_crate_does() {
     // channel, start, samples, error and budget use as the parquet crate reads them. Spark
     // 3.5 needs the two settings the README names (nanosecond times as longs; its vectorized
     // reader lacks BYTE_STREAM_SPLIT).
-    if !have(
-        "pyspark (pip install pyspark) with a Java runtime",
-        Command::new("python3").args(["-c", "import pyspark"]),
-    ) {
+    if !have_pyspark() {
         return;
     }
     let s = Lab::new();
@@ -481,18 +488,7 @@ s.stop()
 "#,
     )
     .unwrap();
-    let out = Command::new("python3")
-        .arg(&script)
-        .arg(&arch)
-        .env("SPARK_LOCAL_IP", "127.0.0.1")
-        .output()
-        .expect("python3 runs");
-    let stdout = String::from_utf8_lossy(&out.stdout);
-    assert!(
-        out.status.success(),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&out.stderr)
-    );
+    let stdout = python_ok(&script, &[&arch]);
     let want: Vec<String> = archive_rows(&arch)
         .iter()
         .map(|r| {
