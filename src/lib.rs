@@ -92,9 +92,9 @@
 //! **Coding.** A block's integer codes (quantized bins, trend coefficients, time-domain
 //! samples) form one range-coded stream with adaptive probabilities in contexts
 //! ([`codec::entropy`]); the block, that stream included, is one zstd frame. A small block
-//! whose codes zstd alone packs smaller is written with varint codes instead (block layout 1).
+//! whose codes zstd alone packs smaller is written with varint codes instead (block layout 5).
 //!
-//! **Archive.** One Parquet file, one row per second of a block's segments (format 3.1); the
+//! **Archive.** One Parquet file, one row per second of a block's segments (format 3.2); the
 //! schema, its columns and the version rules are in [`archive`] and in the README. Every row of the source comes back: timestamps
 //! exactly, and NaN, ±Inf and null values exactly where they were.
 //!

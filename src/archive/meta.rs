@@ -18,7 +18,7 @@ pub const FORMAT_MAJOR: u32 = 3;
 pub const FORMAT_MINOR: u32 = 1;
 
 /// Archive format version as written.
-pub const FORMAT_VERSION: &str = "3.1";
+pub const FORMAT_VERSION: &str = "3.2";
 
 /// The oldest major version this build reads (2: the same layout, with varint codes and
 /// metadata compressed without [`META_DICTIONARY`]).

@@ -30,7 +30,8 @@
 //! segment), and reads format 2 (varint codes, metadata compressed without the dictionary); a
 //! newer minor version only adds columns, fields, segment bases or block layouts. Format 3:
 //! integer codes range-coded ([`crate::codec::entropy`]), metadata compressed against
-//! [`meta::META_DICTIONARY`].
+//! [`meta::META_DICTIONARY`]; 3.2: compact segment headers (block layouts 4 and 5,
+//! [`crate::codec::frame::BLOCK_FORMAT_COMPACT`]).
 //! Beside the archive, `NAME.sha256` records the SHA-256 of the whole archive file.
 //!
 //! Outputs are written to a temporary name in the same folder, fsynced, renamed, and the

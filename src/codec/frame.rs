@@ -23,17 +23,42 @@ use crate::codec::quant::code_count;
 use crate::model::{Basis, Trend, ValueType};
 pub use crate::model::{Special, SpecialKind};
 
-/// Version byte of the block layout this build writes: 2 range-codes the integer codes.
+/// Block layout 2: the integer codes range-coded (archive format 3.0), still read.
 pub const BLOCK_FORMAT: u8 = 2;
 
 /// The first block layout (integer codes as LEB128 varints), still read.
 pub const BLOCK_FORMAT_VARINT: u8 = 1;
 
 /// Layout 2 with peak-guard corrections ([`crate::codec::guard`]) and protected bins
-/// ([`crate::codec::bands`]): written only for blocks that hold such a segment, so that a
-/// build which does not know them refuses the block by its layout number instead of
-/// misreading it.
+/// ([`crate::codec::bands`]) (archive format 3.1), still read.
 pub const BLOCK_FORMAT_GUARDED: u8 = 3;
+
+/// The layout this build writes (archive format 3.2): layout 3's sections with compact
+/// segment headers — a segment's length and order as differences from the previous
+/// segment's in the block, its ideal length as the difference of its f32 bits from those of
+/// its length, and a step on the search grid ([`crate::codec::search::grid_step`]) as the
+/// difference of its grid index from the previous grid step's (any other step as its f32
+/// bits after an escape). Older builds refuse it by its layout number.
+pub const BLOCK_FORMAT_COMPACT: u8 = 4;
+
+/// Layout 4 with varint codes (layout 1's codes section), written where that is smaller
+/// ([`VARINT_TRIAL_BYTES`]); like layout 1, without peak guards or protected bins.
+pub const BLOCK_FORMAT_COMPACT_VARINT: u8 = 5;
+
+/// Whether a layout writes its integer codes as varints.
+pub(crate) fn varint_codes(format: u8) -> bool {
+    format == BLOCK_FORMAT_VARINT || format == BLOCK_FORMAT_COMPACT_VARINT
+}
+
+/// Whether a layout has compact segment headers.
+pub(crate) fn compact_headers(format: u8) -> bool {
+    format == BLOCK_FORMAT_COMPACT || format == BLOCK_FORMAT_COMPACT_VARINT
+}
+
+/// Whether a layout may hold peak guards and protected bins.
+pub(crate) fn guards_allowed(format: u8) -> bool {
+    format == BLOCK_FORMAT_GUARDED || format == BLOCK_FORMAT_COMPACT
+}
 
 /// Segment tag bit: the segment carries a peak guard (layout 3 only).
 pub(crate) const TAG_GUARD: u8 = 0x40;
@@ -260,21 +285,47 @@ fn put_gaps(out: &mut Vec<u8>, at: &[u32]) {
     }
 }
 
-/// Serialize a block (before compression) in this build's layout: [`BLOCK_FORMAT`], or
-/// [`BLOCK_FORMAT_GUARDED`] when a segment carries a peak guard.
+/// Serialize a block (before compression) in this build's layout, [`BLOCK_FORMAT_COMPACT`].
 pub fn serialize_block(b: &Block) -> Vec<u8> {
-    serialize_block_as(
-        b,
-        if b.guarded() {
-            BLOCK_FORMAT_GUARDED
-        } else {
-            BLOCK_FORMAT
-        },
-    )
+    serialize_block_as(b, BLOCK_FORMAT_COMPACT)
 }
 
-/// Serialize a block in layout `format` ([`BLOCK_FORMAT`] or [`BLOCK_FORMAT_VARINT`]).
+/// What the compact segment headers of a block predict from the segment before.
+#[derive(Default)]
+pub(crate) struct HeaderContext {
+    /// The previous segment's length (0 before the first).
+    pub len: usize,
+    /// The previous Fourier or trend segment's order.
+    pub order: u32,
+    /// The previous step's grid index.
+    pub grid: i32,
+}
+
+/// A compact header's step: the grid index's difference from the previous one (ZigZag),
+/// shifted left by one; or 1 followed by the f32 bits for a step off the grid.
+fn put_step(out: &mut Vec<u8>, step: f32, ctx: &mut HeaderContext) {
+    match crate::codec::search::grid_index(step) {
+        Some(k) => {
+            let d = k as i64 - ctx.grid as i64;
+            put(out, (((d << 1) ^ (d >> 63)) as u64) << 1);
+            ctx.grid = k;
+        }
+        None => {
+            put(out, 1u64);
+            out.extend_from_slice(&step.to_le_bytes());
+        }
+    }
+}
+
+/// Serialize a block in layout `format` (any layout this build reads; the older ones for
+/// the tests that read them).
 fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
+    assert!(
+        !b.guarded() || guards_allowed(format),
+        "a layout without guards"
+    );
+    let compact = compact_headers(format);
+    let mut ctx = HeaderContext::default();
     let mut head = Vec::new();
     head.extend_from_slice(MAGIC);
     head.push(format);
@@ -286,7 +337,7 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
     let mut segs = Vec::new();
     let mut specials = Vec::new();
     // The range coder's models (some 100 kB) are set up only for the layout that uses them.
-    let mut coded = (format != BLOCK_FORMAT_VARINT).then(CodeWriter::new);
+    let mut coded = (!varint_codes(format)).then(CodeWriter::new);
     let mut varints = Vec::new();
     let mut raw_words: Vec<(u64, usize)> = Vec::new();
     for s in &b.segments {
@@ -297,13 +348,27 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                 | if s.guard.is_some() { TAG_GUARD } else { 0 }
                 | if s.protect.is_some() { TAG_PROTECT } else { 0 },
         );
-        put(&mut segs, s.len as u64);
-        put(&mut segs, s.cycles as u64);
-        segs.extend_from_slice(&s.ideal_len.to_le_bytes());
+        if compact {
+            put(&mut segs, s.len as i64 - ctx.len as i64);
+            put(&mut segs, s.cycles as u64);
+            let bits = |x: f32| x.to_bits() as i32 as i64;
+            put(&mut segs, bits(s.ideal_len) - bits(s.len as f32));
+            ctx.len = s.len;
+        } else {
+            put(&mut segs, s.len as u64);
+            put(&mut segs, s.cycles as u64);
+            segs.extend_from_slice(&s.ideal_len.to_le_bytes());
+        }
         if let Some(a) = s.warp {
             segs.extend_from_slice(&a.to_le_bytes());
         }
         match s.basis {
+            Basis::Fourier | Basis::Trend if compact => {
+                put(&mut segs, s.order as i64 - ctx.order as i64);
+                ctx.order = s.order;
+                put_step(&mut segs, s.step, &mut ctx);
+            }
+            Basis::Samples if compact => put_step(&mut segs, s.step, &mut ctx),
             Basis::Fourier => {
                 put(&mut segs, s.order as u64);
                 segs.extend_from_slice(&s.step.to_le_bytes());
@@ -311,15 +376,17 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
             Basis::Trend => {
                 put(&mut segs, s.order as u64);
                 segs.extend_from_slice(&s.step.to_le_bytes());
-                let t = s.trend.unwrap_or(Trend {
-                    degree: 1,
-                    step: 0.0,
-                });
-                segs.push(t.degree);
-                segs.extend_from_slice(&t.step.to_le_bytes());
             }
             Basis::Samples => segs.extend_from_slice(&s.step.to_le_bytes()),
             Basis::Lossless => {}
+        }
+        if s.basis == Basis::Trend {
+            let t = s.trend.unwrap_or(Trend {
+                degree: 1,
+                step: 0.0,
+            });
+            segs.push(t.degree);
+            segs.extend_from_slice(&t.step.to_le_bytes());
         }
         if let Some(g) = &s.guard {
             segs.extend_from_slice(&g.peak.to_le_bytes());
@@ -477,10 +544,11 @@ fn compress_frame(bytes: &[u8], level: i32) -> std::io::Result<Vec<u8>> {
 /// Encode a block to a compressed frame.
 pub fn encode_block(b: &Block, level: i32) -> std::io::Result<Vec<u8>> {
     let frame = compress_frame(&serialize_block(b), level)?;
+    // Varint codes have no room for the guards' and protected bins' codes.
     if frame.len() >= VARINT_TRIAL_BYTES || b.guarded() {
         return Ok(frame);
     }
-    let varint = compress_frame(&serialize_block_as(b, BLOCK_FORMAT_VARINT), level)?;
+    let varint = compress_frame(&serialize_block_as(b, BLOCK_FORMAT_COMPACT_VARINT), level)?;
     Ok(if varint.len() < frame.len() {
         varint
     } else {
@@ -543,7 +611,8 @@ mod tests {
                     cycles: 1,
                     basis: Basis::Trend,
                     order: 2,
-                    step: 0.5,
+                    // Off the step grid: a compact header escapes it.
+                    step: 0.3,
                     predicted: false,
                     codes: vec![40, -3, 7, 1, -1],
                     raw: vec![],
@@ -591,13 +660,35 @@ mod tests {
     }
 
     #[test]
-    fn a_guarded_block_round_trips_in_its_own_layout() {
-        let b = guarded_block();
-        let bytes = serialize_block(&b);
+    fn blocks_round_trip_in_every_layout_this_build_reads() {
         // The header's length (one byte here), the magic, then the layout number.
-        assert_eq!(bytes[3], BLOCK_FORMAT_GUARDED);
-        assert_eq!(decode_block(&encode_block(&b, 3).unwrap()).unwrap(), b);
-        assert_eq!(serialize_block(&sample_block())[3], BLOCK_FORMAT);
+        assert_eq!(serialize_block(&guarded_block())[3], BLOCK_FORMAT_COMPACT);
+        assert_eq!(serialize_block(&sample_block())[3], BLOCK_FORMAT_COMPACT);
+        for format in [
+            BLOCK_FORMAT_VARINT,
+            BLOCK_FORMAT,
+            BLOCK_FORMAT_GUARDED,
+            BLOCK_FORMAT_COMPACT,
+            BLOCK_FORMAT_COMPACT_VARINT,
+        ] {
+            let b = sample_block();
+            let bytes = serialize_block_as(&b, format);
+            assert_eq!(bytes[3], format);
+            assert_eq!(parse_block(&bytes).unwrap(), b, "layout {format}");
+            if guards_allowed(format) {
+                let g = guarded_block();
+                assert_eq!(parse_block(&serialize_block_as(&g, format)).unwrap(), g);
+            }
+        }
+        let g = guarded_block();
+        assert_eq!(decode_block(&encode_block(&g, 3).unwrap()).unwrap(), g);
+    }
+
+    #[test]
+    fn compact_headers_refuse_guards_in_the_varint_layout() {
+        let mut bytes = serialize_block_as(&guarded_block(), BLOCK_FORMAT_COMPACT);
+        bytes[3] = BLOCK_FORMAT_COMPACT_VARINT;
+        assert!(parse_block(&bytes).is_err());
     }
 
     #[test]

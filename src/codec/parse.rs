@@ -7,9 +7,12 @@ use integer_encoding::VarInt;
 use crate::codec::entropy::{CodeReader, Family};
 use crate::codec::frame::{
     code_layout, vt_from_tag, Block, BlockTimes, CodeLayout, FrameError, Guard, Protected,
-    SegmentRecord, BLOCK_FORMAT, BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES,
-    TAG_GUARD, TAG_PROTECT,
+    SegmentRecord, BLOCK_FORMAT, BLOCK_FORMAT_COMPACT, BLOCK_FORMAT_COMPACT_VARINT,
+    BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES, TAG_GUARD, TAG_PROTECT,
 };
+use crate::codec::frame::{compact_headers, guards_allowed, varint_codes, HeaderContext};
+use crate::codec::search::grid_step;
+use crate::codec::segment::MAX_SEGMENT_SAMPLES;
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
 
 /// Decompress a frame (checking zstd's content checksum) with a size limit.
@@ -160,6 +163,26 @@ impl Codes<'_> {
     }
 }
 
+/// A compact header's step (see [`crate::codec::frame`]'s `put_step`).
+fn compact_step(sc: &mut Cursor<'_>, ctx: &mut HeaderContext) -> Result<f32, FrameError> {
+    let u: u64 = sc.var()?;
+    if u == 1 {
+        return sc.f32();
+    }
+    if u & 1 == 1 {
+        return Err(sc.err("unknown step escape"));
+    }
+    let z = u >> 1;
+    let d = (z >> 1) as i64 ^ -((z & 1) as i64);
+    let k = (ctx.grid as i64)
+        .checked_add(d)
+        .and_then(|k| i32::try_from(k).ok())
+        .ok_or_else(|| sc.err("step grid index out of range"))?;
+    let step = grid_step(k).ok_or_else(|| sc.err("step grid index out of range"))?;
+    ctx.grid = k;
+    Ok(step)
+}
+
 /// Parse a decompressed block. Never panics on malformed input.
 pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
     let mut outer = Cursor::new(bytes, "block");
@@ -174,7 +197,15 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         return Err(FrameError::BadMagic);
     }
     let fmt = h.byte()?;
-    if ![BLOCK_FORMAT, BLOCK_FORMAT_VARINT, BLOCK_FORMAT_GUARDED].contains(&fmt) {
+    if ![
+        BLOCK_FORMAT,
+        BLOCK_FORMAT_VARINT,
+        BLOCK_FORMAT_GUARDED,
+        BLOCK_FORMAT_COMPACT,
+        BLOCK_FORMAT_COMPACT_VARINT,
+    ]
+    .contains(&fmt)
+    {
         return Err(FrameError::UnsupportedFormat(fmt));
     }
     let value_type = vt_from_tag(h.byte()?).ok_or_else(|| h.err("unknown value type"))?;
@@ -185,7 +216,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
 
     let mut sc = Cursor::new(parts[1], "segment headers");
     let mut sp = Cursor::new(parts[3], "specials");
-    let mut codes = if fmt == BLOCK_FORMAT_VARINT {
+    let compact = compact_headers(fmt);
+    let mut ctx = HeaderContext::default();
+    let mut codes = if varint_codes(fmt) {
         Codes::Varint(Cursor::new(parts[4], "codes"))
     } else {
         let r = CodeReader::new(parts[4]).map_err(|e| FrameError::Codes(e.to_string()))?;
@@ -207,12 +240,32 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let tag = sc.byte()?;
         let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
         let predicted = tag & 0x10 != 0;
-        let len = sc.count(crate::codec::segment::MAX_SEGMENT_SAMPLES)?;
-        if tag & (TAG_GUARD | TAG_PROTECT) != 0 && fmt != BLOCK_FORMAT_GUARDED {
+        let len = if compact {
+            let d: i64 = sc.var()?;
+            let len = (ctx.len as i64)
+                .checked_add(d)
+                .filter(|l| (0..=MAX_SEGMENT_SAMPLES as i64).contains(l))
+                .ok_or_else(|| sc.err("segment length out of range"))?;
+            ctx.len = len as usize;
+            len as usize
+        } else {
+            sc.count(MAX_SEGMENT_SAMPLES)?
+        };
+        if tag & (TAG_GUARD | TAG_PROTECT) != 0 && !guards_allowed(fmt) {
             return Err(sc.err("unknown segment flags"));
         }
         let cycles = sc.count(u32::MAX as usize)? as u32;
-        let ideal_len = sc.f32()?;
+        let ideal_len = if compact {
+            let d: i64 = sc.var()?;
+            let bits = (len as f32).to_bits() as i32 as i64;
+            let v = bits
+                .checked_add(d)
+                .and_then(|b| i32::try_from(b).ok())
+                .ok_or_else(|| sc.err("ideal length out of range"))?;
+            f32::from_bits(v as u32)
+        } else {
+            sc.f32()?
+        };
         let warp = if tag & 0x20 != 0 {
             if basis != Basis::Fourier {
                 return Err(sc.err("warp on a segment that is not Fourier"));
@@ -227,23 +280,32 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         };
         let mut trend = None;
         let (order, step) = match basis {
-            Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
-            Basis::Trend => {
-                let order = sc.count(len / 2 + 1)? as u32;
-                let step = sc.f32()?;
-                let degree = sc.byte()?;
-                if !(1..=2).contains(&degree) {
-                    return Err(sc.err("trend degree not 1 or 2"));
-                }
-                trend = Some(Trend {
-                    degree,
-                    step: sc.f32()?,
-                });
-                (order, step)
+            Basis::Fourier | Basis::Trend if compact => {
+                let d: i64 = sc.var()?;
+                let order = (ctx.order as i64)
+                    .checked_add(d)
+                    .filter(|o| (0..=(len / 2 + 1) as i64).contains(o))
+                    .ok_or_else(|| sc.err("order out of range"))?
+                    as u32;
+                ctx.order = order;
+                (order, compact_step(&mut sc, &mut ctx)?)
             }
+            Basis::Samples if compact => (0, compact_step(&mut sc, &mut ctx)?),
+            Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
+            Basis::Trend => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
             Basis::Samples => (0, sc.f32()?),
             Basis::Lossless => (0, 0.0),
         };
+        if basis == Basis::Trend {
+            let degree = sc.byte()?;
+            if !(1..=2).contains(&degree) {
+                return Err(sc.err("trend degree not 1 or 2"));
+            }
+            trend = Some(Trend {
+                degree,
+                step: sc.f32()?,
+            });
+        }
         let guard = if tag & TAG_GUARD != 0 {
             if basis == Basis::Lossless {
                 return Err(sc.err("peak guard on a lossless segment"));

@@ -10,6 +10,47 @@ use crate::signal::{is_real_bin, weight, C64};
 /// Quantizer steps are searched on a grid of this many steps per octave.
 pub const STEPS_PER_OCTAVE: f64 = 4.0;
 
+/// The mantissas of the step grid, 2^(j/4) for j = 0 … 3, as the f32 values every build
+/// uses (decoders rebuild a step from its grid index with them, never with `powf`).
+const GRID_MANTISSAS: [f32; 4] = [1.0, 1.189_207_1, std::f32::consts::SQRT_2, 1.681_792_8];
+
+/// The quantizer step of grid index `k`: 2^(k/4), exactly the f32
+/// `GRID_MANTISSAS[k mod 4]·2^⌊k/4⌋` (the power of two is put in the exponent field, so no
+/// rounding happens anywhere); `None` outside f32's normal range.
+pub fn grid_step(k: i32) -> Option<f32> {
+    let e = k.div_euclid(4);
+    let m = GRID_MANTISSAS[k.rem_euclid(4) as usize];
+    // Every mantissa's biased exponent is 127: the step's is 127 + e.
+    (-126..=127)
+        .contains(&e)
+        .then(|| f32::from_bits((m.to_bits() as i64 + ((e as i64) << 23)) as u32))
+}
+
+/// The grid index of `step` when it is exactly a grid step ([`grid_step`]), else `None`.
+pub fn grid_index(step: f32) -> Option<i32> {
+    if !(step.is_normal() && step > 0.0) {
+        return None;
+    }
+    let e = ((step.to_bits() >> 23) as i32) - 127;
+    let m = f32::from_bits((step.to_bits() & 0x007f_ffff) | (127 << 23));
+    let j = GRID_MANTISSAS.iter().position(|&g| g == m)? as i32;
+    Some(4 * e + j)
+}
+
+/// The largest grid index whose step is at most `x` (x > 0, finite), or `None` when no
+/// grid step is.
+fn grid_floor(x: f64) -> Option<i32> {
+    let mut k = (STEPS_PER_OCTAVE * x.log2()).floor() as i32;
+    // log2 may round either way near a grid step: settle on the exact comparison.
+    while grid_step(k + 1).is_some_and(|s| s as f64 <= x) {
+        k += 1;
+    }
+    while grid_step(k).is_some_and(|s| s as f64 > x) {
+        k -= 1;
+    }
+    grid_step(k).map(|_| k)
+}
+
 /// Exact error energy (summed over the N samples, before output rounding) of every order
 /// L = 0 … ⌊N/2⌋+1 for coefficients `c`, optional prediction `pred` and step Δ:
 /// `E(L) = Σ_{k<L} w_k |c_k − p_k − Δ·q_k|² + Σ_{k≥L} w_k |c_k|²`.
@@ -71,8 +112,10 @@ pub const HEADER_BITS: f64 = 24.0;
 /// The cheapest (step, order) on the step grid for a target energy, with or without
 /// prediction: returns (step, order, cost bits).
 ///
-/// The grid runs from √(12·E) (one code's rounding spends the whole target) down by
-/// [`STEPS_PER_OCTAVE`] per octave to where every kept code's rounding is far below it. The
+/// The grid ([`grid_step`], [`STEPS_PER_OCTAVE`] steps per octave, the same for every
+/// segment so that a block stores a step as its index) runs from the largest step at most
+/// √(12·E) (one code's rounding spends the whole target) down to where every kept code's
+/// rounding is far below it. The
 /// cost along it falls while coarser steps still force a high order, then rises as finer steps
 /// buy nothing but longer codes; the search samples every other grid step from the coarse end,
 /// stops [`SEARCH_PATIENCE`] samples past the cheapest, and then tries that one's two grid
@@ -91,12 +134,13 @@ pub fn choose_step_order(
     }
     let hi = (12.0 * target_energy).sqrt();
     let lo = (12.0 * target_energy / (2.0 * m as f64)).sqrt() / 2.0;
-    let ratio = 2f64.powf(-1.0 / STEPS_PER_OCTAVE);
     let mut grid = Vec::new();
-    let mut s = hi;
-    while s >= lo {
-        grid.push(s as f32);
-        s *= ratio;
+    if hi.is_finite() {
+        let mut k = grid_floor(hi)?;
+        while let Some(s) = grid_step(k).filter(|&s| s as f64 >= lo) {
+            grid.push(s);
+            k -= 1;
+        }
     }
     // The dropped bins' energy is the same at every step: summed once; so are the residuals.
     let tail = tail_energies(c, n);
@@ -175,3 +219,40 @@ pub fn choose_step_order(
 
 /// Samples past the cheapest after which the step search stops.
 pub const SEARCH_PATIENCE: usize = 3;
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn grid_steps_are_fourth_roots_of_two_and_give_back_their_index() {
+        for k in -500..=500 {
+            let s = grid_step(k).unwrap();
+            // Within f32 rounding of 2^(k/4) computed in f64 (the mantissas are f32
+            // roundings of 2^(j/4), and the power of two is exact).
+            let want = 2f64.powf(k as f64 / 4.0);
+            assert!(
+                ((s as f64) / want - 1.0).abs() < 1e-7,
+                "k {k}: {s} vs {want}"
+            );
+            assert_eq!(grid_index(s), Some(k));
+            if k % 4 == 0 {
+                assert_eq!(s as f64, want, "powers of two are exact");
+            }
+        }
+        assert_eq!(grid_step(-505), None);
+        assert_eq!(grid_step(512), None);
+        assert_eq!(grid_index(0.3), None);
+        assert_eq!(grid_index(0.0), None);
+        assert_eq!(grid_index(-1.0), None);
+    }
+
+    #[test]
+    fn grid_floor_is_the_largest_step_not_above() {
+        for x in [1e-30, 0.001, 0.7, 1.0, 1.189_207_1, 3.9, 1e12] {
+            let k = grid_floor(x).unwrap();
+            assert!(grid_step(k).unwrap() as f64 <= x);
+            assert!(grid_step(k + 1).unwrap() as f64 > x);
+        }
+    }
+}

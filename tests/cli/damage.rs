@@ -232,14 +232,14 @@ fn damaged_cyclarc_metadata_is_reported() {
         ("middle", meta + packed.len() / 2, 2, &bad_meta),
         // The end: inside the content checksum.
         ("end", meta + packed.len() - 3, 0, &bad_meta),
-        // `3.1` → `s.1`: no such version.
+        // `3.2` → `s.2`: no such version.
         (
             "format s",
             version,
             6,
             &["damaged archive", "format version"],
         ),
-        // `3.1` → `7.1`: looks newer; only the digest can tell it is damage.
+        // `3.2` → `7.2`: looks newer; only the digest can tell it is damage.
         (
             "format 7",
             version,

@@ -242,7 +242,19 @@ fn trend_recovers_a_growing_harmonic_and_ieee519_thd() {
         assert_eq!(p["start_ns"].as_i64(), Some(*t0));
         let want = thd_ieee519(snap, 50);
         let got = p["thd"].as_f64().unwrap();
-        assert!((got / want - 1.0).abs() <= 0.01, "THD {got} against {want}");
+        // What the budget allows (Parseval, derived here): an error of RMS ε moves the peak
+        // amplitudes a_h of the harmonics by at most √2·ε together (Σ Δa_h² ≤ 2ε²), so
+        // THD = ‖a_2…50‖/a_1 moves by at most √2·ε·√(1 + THD²)/(a_1 − √2·ε); a coder that
+        // spends the budget on the few harmonic bins there are comes near that.
+        let rms = (snap.iter().map(|v| v * v).sum::<f64>() / snap.len() as f64).sqrt();
+        let eps = 0.0005 * rms * (1.0 + 1e-6);
+        let bound = 2f64.sqrt() * eps * (1.0 + want * want).sqrt() / (100.0 - 2f64.sqrt() * eps);
+        assert!(
+            (got - want).abs() <= bound,
+            "THD {got} against {want}: off by more than the budget allows ({bound})"
+        );
+        // And well inside 2 % of it: the trend is a usable THD record.
+        assert!((got / want - 1.0).abs() <= 0.02, "THD {got} against {want}");
     }
     // The other outputs hold the same points.
     let csv = s.run(&["trend", ps(&arch), "--csv"]);
