@@ -65,6 +65,9 @@ pub const TIE_MARGIN: f64 = 1.01;
 /// above 0.2 s ones in the trial and coded 27 % smaller over the whole file).
 pub const LONGER_MARGIN: f64 = 1.03;
 
+/// The multiples of the winner's least duration it is also priced at.
+pub const LONGER_MULTIPLES: [f64; 5] = [2.0, 4.0, 8.0, 16.0, 64.0];
+
 /// Fixed blocks must code this much smaller than the best periodic cut to be chosen over it
 /// (a periodic cut keeps the harmonic columns meaningful).
 pub const PERIODIC_MARGIN: f64 = 0.9;
@@ -560,9 +563,9 @@ impl Planner {
     /// below half the best and correlating below 0.3 are dropped), each refined on a trial
     /// stretch and priced by `arbiter` as bytes per sample of whole segments. All are priced
     /// at their own least duration, after sub-multiples of better-scored candidates are
-    /// dropped (they would gain only from longer segments); the winner is then priced at 2,
-    /// 4, 16 and 64 times that duration (unless cycles per segment are given; a longer one is
-    /// kept while within [`LONGER_MARGIN`] of the shorter), and fixed
+    /// dropped (they would gain only from longer segments); the winner is then priced at
+    /// [`LONGER_MULTIPLES`] of that duration (unless cycles per segment are given; a longer
+    /// one is kept while within [`LONGER_MARGIN`] of the cheapest shorter one), and fixed
     /// blocks at 1, 4, 16 and 64 times the fallback length (at the periodic duration when
     /// cycles are given). Durations that do not fit twice in the trial are not priced. Without an arbiter: the best-scored candidate
     /// whose autocorrelation reaches the minimum confidence.
@@ -682,15 +685,18 @@ impl Planner {
             if !given_k {
                 let base = natural(best.hz);
                 let hz = best.hz;
-                let longer: Vec<Option<f64>> = [2.0, 4.0, 16.0, 64.0]
+                let longer: Vec<Option<f64>> = LONGER_MULTIPLES
                     .par_iter()
                     .map(|&m| price(FundamentalSetting::Hz(hz), m * base))
                     .collect();
-                for (m, p) in [2.0, 4.0, 16.0, 64.0].into_iter().zip(longer) {
+                // Against the cheapest price so far, so that margins do not compound.
+                let mut cheapest = *b;
+                for (m, p) in LONGER_MULTIPLES.into_iter().zip(longer) {
                     if let Some(p) = p {
-                        if p <= *b * LONGER_MARGIN {
+                        if p <= cheapest * LONGER_MARGIN {
                             (*b, seconds) = (p, m * base);
                         }
+                        cheapest = cheapest.min(p);
                     }
                 }
             }
