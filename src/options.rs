@@ -9,7 +9,7 @@ use serde::{Deserialize, Serialize};
 use crate::codec::bands::{rotor_bar_sidebands_hz, Band, BandUnit, BearingGeometry, Protection};
 pub use crate::codec::params::{
     Budget, CodecParams, DEFAULT_BLOCK_SAMPLES, DEFAULT_BLOCK_SEGMENTS, DEFAULT_BUDGET_REL,
-    DEFAULT_ZSTD_LEVEL, MAX_BUDGET, MIN_POSITIVE_BUDGET,
+    DEFAULT_ZSTD_LEVEL, MAX_BLOCK_SAMPLES, MAX_BUDGET, MIN_BLOCK_SAMPLES, MIN_POSITIVE_BUDGET,
 };
 use crate::codec::segment::FundamentalSetting;
 use crate::error::{Error, Result};
@@ -335,6 +335,11 @@ pub struct EncodeOptions {
     pub zstd_level: Option<i32>,
     /// Most segments per block. Default 256.
     pub block_segments: Option<usize>,
+    /// Most samples per block. Default 2¹⁹ (524,288). A block is what a reader decodes to
+    /// reach any time in it, and what the encoder holds of each channel while it fills:
+    /// larger blocks code smaller (fewer block headers, fewer restarts of the prediction)
+    /// and cost memory per channel (about 32 bytes a sample).
+    pub block_samples: Option<usize>,
 }
 
 /// Validated settings: what the source reader needs and what the codec needs, split once.
@@ -439,7 +444,8 @@ impl EncodeOptions {
             channels,
             sample_rate_hz,
             zstd_level,
-            block_segments
+            block_segments,
+            block_samples
         );
         // An absolute budget given on top replaces a relative one, and vice versa; a number
         // replaces a chosen budget, and a chosen budget replaces numbers.
@@ -562,6 +568,15 @@ impl EncodeOptions {
                 reason: "must be at least 1".into(),
             });
         }
+        let block_samples = self.block_samples.unwrap_or(DEFAULT_BLOCK_SAMPLES);
+        if !(MIN_BLOCK_SAMPLES..=MAX_BLOCK_SAMPLES).contains(&block_samples) {
+            return Err(Error::InvalidOption {
+                name: "block-samples".into(),
+                reason: format!(
+                    "must be {MIN_BLOCK_SAMPLES} … {MAX_BLOCK_SAMPLES}, got {block_samples}"
+                ),
+            });
+        }
         Ok(Settings {
             source: Mapping {
                 layout: self.layout,
@@ -582,7 +597,7 @@ impl EncodeOptions {
                 cycles_per_segment: self.cycles_per_segment,
                 zstd_level,
                 block_segments,
-                block_samples: DEFAULT_BLOCK_SAMPLES,
+                block_samples,
                 peak_max,
                 peak_rules,
                 protection,

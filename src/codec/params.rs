@@ -15,8 +15,15 @@ pub const DEFAULT_ZSTD_LEVEL: i32 = 19;
 /// Default most segments per block.
 pub const DEFAULT_BLOCK_SEGMENTS: usize = 256;
 
-/// Default most samples per block.
-pub const DEFAULT_BLOCK_SAMPLES: usize = 1 << 18;
+/// Default most samples per block (measured on 10⁷ samples of clean motor current at 0.5 %:
+/// 2¹⁸ 9.4 kB, 2¹⁹ 7.0 kB, 2²⁰ 5.5 kB; peak memory 141, 160, 204 MB).
+pub const DEFAULT_BLOCK_SAMPLES: usize = 1 << 19;
+
+/// Fewest samples per block a setting may ask for.
+pub const MIN_BLOCK_SAMPLES: usize = 1 << 12;
+
+/// Most samples per block a setting may ask for (the largest segment fits in one).
+pub const MAX_BLOCK_SAMPLES: usize = 1 << 24;
 
 /// Default relative budget when none is given: 0.5 % of each segment's RMS.
 pub const DEFAULT_BUDGET_REL: f64 = 0.005;

@@ -280,6 +280,35 @@ fn rows_where(keys: &[(String, i32)], keep: impl Fn(&(String, i32)) -> bool) -> 
 }
 
 #[test]
+fn block_samples_caps_blocks_and_is_checked() {
+    let lab = Lab::new();
+    let src = lab.path("src.parquet");
+    let n = 20_000;
+    write_long(
+        &src,
+        &grid(n, 1000.0),
+        &vec!["a".to_string(); n],
+        f64s(&clean_wave(n, 1000.0, 50.0, 1.0)),
+    );
+    let pipe = lab.path("job.toml");
+    let job = |cap: usize| {
+        format!("output = \"out\"\n[encode]\nblock_samples = {cap}\n[[source]]\npaths = [\"src.parquet\"]\n")
+    };
+    std::fs::write(&pipe, job(100)).expect("pipeline");
+    let ran = lab.run(&["run", ps(&pipe)]);
+    ran.expect(2)
+        .ensure(ran.stderr.contains("block-samples"), "names the setting");
+    assert!(!lab.path("out/src.cyclarc.parquet").exists());
+    // 20,000 samples in blocks of at most 4,096: five blocks or more.
+    std::fs::write(&pipe, job(4096)).expect("pipeline");
+    lab.run(&["run", ps(&pipe)]).expect(0);
+    let meta = archive_meta(&lab.path("out/src.cyclarc.parquet"));
+    assert_eq!(meta["settings"]["block_samples"], 4096);
+    let blocks = meta["channels"][0]["blocks"].as_u64().expect("blocks");
+    assert!(blocks >= 5, "{blocks} blocks");
+}
+
+#[test]
 fn a_missing_repeated_or_dropped_block_is_reported_by_channel_and_number() {
     let lab = Lab::new();
     let src = lab.path("src.parquet");
