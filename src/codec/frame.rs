@@ -19,7 +19,7 @@ use integer_encoding::VarInt;
 pub use crate::codec::bands::Protected;
 use crate::codec::entropy::{CodeWriter, Family};
 pub use crate::codec::guard::Guard;
-use crate::codec::quant::code_count;
+use crate::codec::quant::{code_count, zigzag};
 use crate::model::{Basis, Trend, ValueType};
 pub use crate::model::{Special, SpecialKind};
 
@@ -306,8 +306,7 @@ pub(crate) struct HeaderContext {
 fn put_step(out: &mut Vec<u8>, step: f32, ctx: &mut HeaderContext) {
     match crate::codec::search::grid_index(step) {
         Some(k) => {
-            let d = k as i64 - ctx.grid as i64;
-            put(out, (((d << 1) ^ (d >> 63)) as u64) << 1);
+            put(out, zigzag(k as i64 - ctx.grid as i64) << 1);
             ctx.grid = k;
         }
         None => {
@@ -369,11 +368,7 @@ fn serialize_block_as(b: &Block, format: u8) -> Vec<u8> {
                 put_step(&mut segs, s.step, &mut ctx);
             }
             Basis::Samples if compact => put_step(&mut segs, s.step, &mut ctx),
-            Basis::Fourier => {
-                put(&mut segs, s.order as u64);
-                segs.extend_from_slice(&s.step.to_le_bytes());
-            }
-            Basis::Trend => {
+            Basis::Fourier | Basis::Trend => {
                 put(&mut segs, s.order as u64);
                 segs.extend_from_slice(&s.step.to_le_bytes());
             }

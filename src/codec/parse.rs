@@ -11,6 +11,7 @@ use crate::codec::frame::{
     BLOCK_FORMAT_GUARDED, BLOCK_FORMAT_VARINT, MAGIC, MAX_BLOCK_BYTES, TAG_GUARD, TAG_PROTECT,
 };
 use crate::codec::frame::{compact_headers, guards_allowed, varint_codes, HeaderContext};
+use crate::codec::quant::unzigzag;
 use crate::codec::search::grid_step;
 use crate::codec::segment::MAX_SEGMENT_SAMPLES;
 use crate::model::{Basis, Special, SpecialKind, Trend, ValueType};
@@ -119,6 +120,20 @@ impl<'a> Cursor<'a> {
         Ok(out)
     }
 
+    /// A compact header's value: `base` plus a signed varint difference, which must land in
+    /// `range`.
+    fn delta(
+        &mut self,
+        base: i64,
+        range: std::ops::RangeInclusive<i64>,
+        what: &'static str,
+    ) -> Result<i64, FrameError> {
+        let d: i64 = self.var()?;
+        base.checked_add(d)
+            .filter(|v| range.contains(v))
+            .ok_or_else(|| self.err(what))
+    }
+
     fn count(&mut self, limit: usize) -> Result<usize, FrameError> {
         let v: u64 = self.var()?;
         if v as u128 > limit as u128 {
@@ -172,10 +187,8 @@ fn compact_step(sc: &mut Cursor<'_>, ctx: &mut HeaderContext) -> Result<f32, Fra
     if u & 1 == 1 {
         return Err(sc.err("unknown step escape"));
     }
-    let z = u >> 1;
-    let d = (z >> 1) as i64 ^ -((z & 1) as i64);
     let k = (ctx.grid as i64)
-        .checked_add(d)
+        .checked_add(unzigzag(u >> 1))
         .and_then(|k| i32::try_from(k).ok())
         .ok_or_else(|| sc.err("step grid index out of range"))?;
     let step = grid_step(k).ok_or_else(|| sc.err("step grid index out of range"))?;
@@ -241,13 +254,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let basis = Basis::from_tag(tag & 0x0f).ok_or_else(|| sc.err("unknown basis"))?;
         let predicted = tag & 0x10 != 0;
         let len = if compact {
-            let d: i64 = sc.var()?;
-            let len = (ctx.len as i64)
-                .checked_add(d)
-                .filter(|l| (0..=MAX_SEGMENT_SAMPLES as i64).contains(l))
-                .ok_or_else(|| sc.err("segment length out of range"))?;
-            ctx.len = len as usize;
-            len as usize
+            let max = MAX_SEGMENT_SAMPLES as i64;
+            ctx.len = sc.delta(ctx.len as i64, 0..=max, "segment length out of range")? as usize;
+            ctx.len
         } else {
             sc.count(MAX_SEGMENT_SAMPLES)?
         };
@@ -256,13 +265,9 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         }
         let cycles = sc.count(u32::MAX as usize)? as u32;
         let ideal_len = if compact {
-            let d: i64 = sc.var()?;
             let bits = (len as f32).to_bits() as i32 as i64;
-            let v = bits
-                .checked_add(d)
-                .and_then(|b| i32::try_from(b).ok())
-                .ok_or_else(|| sc.err("ideal length out of range"))?;
-            f32::from_bits(v as u32)
+            let i32s = i32::MIN as i64..=i32::MAX as i64;
+            f32::from_bits(sc.delta(bits, i32s, "ideal length out of range")? as i32 as u32)
         } else {
             sc.f32()?
         };
@@ -281,18 +286,12 @@ pub fn parse_block(bytes: &[u8]) -> Result<Block, FrameError> {
         let mut trend = None;
         let (order, step) = match basis {
             Basis::Fourier | Basis::Trend if compact => {
-                let d: i64 = sc.var()?;
-                let order = (ctx.order as i64)
-                    .checked_add(d)
-                    .filter(|o| (0..=(len / 2 + 1) as i64).contains(o))
-                    .ok_or_else(|| sc.err("order out of range"))?
-                    as u32;
-                ctx.order = order;
-                (order, compact_step(&mut sc, &mut ctx)?)
+                let orders = 0..=(len / 2 + 1) as i64;
+                ctx.order = sc.delta(ctx.order as i64, orders, "order out of range")? as u32;
+                (ctx.order, compact_step(&mut sc, &mut ctx)?)
             }
             Basis::Samples if compact => (0, compact_step(&mut sc, &mut ctx)?),
-            Basis::Fourier => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
-            Basis::Trend => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
+            Basis::Fourier | Basis::Trend => (sc.count(len / 2 + 1)? as u32, sc.f32()?),
             Basis::Samples => (0, sc.f32()?),
             Basis::Lossless => (0, 0.0),
         };

@@ -7,19 +7,22 @@
 use crate::codec::quant::{dequantize_bin, quantize_bin, CostCounter};
 use crate::signal::{is_real_bin, weight, C64};
 
-/// Quantizer steps are searched on a grid of this many steps per octave.
-pub const STEPS_PER_OCTAVE: f64 = 4.0;
-
 /// The mantissas of the step grid, 2^(j/4) for j = 0 … 3, as the f32 values every build
 /// uses (decoders rebuild a step from its grid index with them, never with `powf`).
 const GRID_MANTISSAS: [f32; 4] = [1.0, 1.189_207_1, std::f32::consts::SQRT_2, 1.681_792_8];
+
+/// Grid steps per octave: one per mantissa.
+const GRID_PER_OCTAVE: i32 = GRID_MANTISSAS.len() as i32;
+
+/// Quantizer steps are searched on a grid of this many steps per octave.
+pub const STEPS_PER_OCTAVE: f64 = GRID_PER_OCTAVE as f64;
 
 /// The quantizer step of grid index `k`: 2^(k/4), exactly the f32
 /// `GRID_MANTISSAS[k mod 4]·2^⌊k/4⌋` (the power of two is put in the exponent field, so no
 /// rounding happens anywhere); `None` outside f32's normal range.
 pub fn grid_step(k: i32) -> Option<f32> {
-    let e = k.div_euclid(4);
-    let m = GRID_MANTISSAS[k.rem_euclid(4) as usize];
+    let e = k.div_euclid(GRID_PER_OCTAVE);
+    let m = GRID_MANTISSAS[k.rem_euclid(GRID_PER_OCTAVE) as usize];
     // Every mantissa's biased exponent is 127: the step's is 127 + e.
     (-126..=127)
         .contains(&e)
@@ -34,7 +37,7 @@ pub fn grid_index(step: f32) -> Option<i32> {
     let e = ((step.to_bits() >> 23) as i32) - 127;
     let m = f32::from_bits((step.to_bits() & 0x007f_ffff) | (127 << 23));
     let j = GRID_MANTISSAS.iter().position(|&g| g == m)? as i32;
-    Some(4 * e + j)
+    Some(GRID_PER_OCTAVE * e + j)
 }
 
 /// The largest grid index whose step is at most `x` (x > 0, finite), or `None` when no
