@@ -72,6 +72,12 @@ pub const LONGER_MULTIPLES: [f64; 5] = [2.0, 4.0, 8.0, 16.0, 64.0];
 /// (a periodic cut keeps the harmonic columns meaningful).
 pub const PERIODIC_MARGIN: f64 = 0.9;
 
+/// Fixed blocks that hold the estimated fundamental's whole cycles to within this many
+/// cycles are cut as periodic segments of those cycles (the harmonics then sit on bins
+/// K·h, so the harmonic columns are meaningful): harmonic 40 then slips by at most 0.4 of a
+/// bin over a block (common practice: a tolerance of our own, not a published one).
+pub const WHOLE_CYCLES_TOLERANCE: f64 = 0.01;
+
 /// No segment is longer than this many samples.
 pub const MAX_SEGMENT_SAMPLES: usize = 1 << 20;
 
@@ -161,6 +167,9 @@ struct Choice {
     periodic: bool,
     /// Segment duration (periodic: the least; else the block length), seconds.
     seconds: f64,
+    /// Fixed blocks that hold whole cycles of the runner-up estimate: the fundamental
+    /// they give (fs·K/L) and K (see [`WHOLE_CYCLES_TOLERANCE`]).
+    whole: Option<(Estimate, u32)>,
 }
 
 /// Prices a trial cut for the planner: the coded bytes of `x` cut into `segments` (whole
@@ -431,8 +440,19 @@ impl Planner {
                 self.settings.fallback_segment_seconds = choice.seconds;
             }
             self.mode = match choice.estimate.filter(|_| choice.periodic) {
-                None => Mode::Fixed {
-                    len: fixed_len(&self.settings),
+                None => match choice.whole {
+                    None => Mode::Fixed {
+                        len: fixed_len(&self.settings),
+                    },
+                    Some((g, k)) => {
+                        self.estimate = Some(g);
+                        self.source = FundamentalSource::Estimated;
+                        self.range = Some((g.hz, g.hz));
+                        Mode::Given {
+                            ideal: fixed_len(&self.settings) as f64,
+                            k,
+                        }
+                    }
                 },
                 Some(g) => {
                     self.estimate = Some(g);
@@ -616,6 +636,7 @@ impl Planner {
                 } else {
                     fixed
                 },
+                whole: None,
             };
         };
         let given_k = self.settings.cycles_per_segment.is_some();
@@ -731,13 +752,44 @@ impl Planner {
                 runner_up: it.next().map(|(e, r)| (e, r / b)),
                 periodic: true,
                 seconds,
+                whole: None,
             },
-            best => Choice {
-                estimate: None,
-                runner_up: best.map(|(e, b)| (e, b / none)),
-                periodic: false,
-                seconds: none_s,
-            },
+            best => {
+                // Blocks that happen to hold whole cycles of a priced candidate (the
+                // cheapest such, of at least the minimum confidence) are its periodic segments: an exact number of samples per
+                // cycle, as in a test signal or a line locked to the sampling clock.
+                let len = ((none_s * fs).round() as usize).clamp(16, MAX_SEGMENT_SAMPLES);
+                let priced: Vec<(Estimate, f64)> = best.into_iter().chain(it).collect();
+                let fits = |e: &Estimate| {
+                    if e.confidence < self.settings.min_confidence {
+                        return None;
+                    }
+                    let cycles = len as f64 * e.hz / fs;
+                    let k = cycles.round();
+                    (k >= 1.0 && (cycles - k).abs() <= WHOLE_CYCLES_TOLERANCE).then_some(k)
+                };
+                let at = priced.iter().position(|(e, _)| fits(e).is_some());
+                let whole = at.and_then(|i| {
+                    let (e, _) = priced[i];
+                    fits(&e).map(|k| {
+                        let hz = fs * k / len as f64;
+                        (Estimate { hz, ..e }, k as u32)
+                    })
+                });
+                // The runner-up: the cheapest candidate the blocks do not carry.
+                let runner_up = priced
+                    .iter()
+                    .enumerate()
+                    .find(|&(i, _)| Some(i) != at)
+                    .map(|(_, p)| *p);
+                Choice {
+                    estimate: None,
+                    runner_up: runner_up.map(|(e, b)| (e, b / none)),
+                    periodic: false,
+                    seconds: none_s,
+                    whole,
+                }
+            }
         }
     }
 

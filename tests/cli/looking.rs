@@ -276,6 +276,48 @@ fn trend_recovers_a_growing_harmonic_and_ieee519_thd() {
         .says(&["nope"]);
 }
 
+#[test]
+fn a_line_locked_to_the_sampling_clock_is_reported_with_its_fundamental_and_thd() {
+    // 50 Hz at 10 kHz: exactly 200 samples a cycle, harmonics 3 and 5 (amplitudes 0.8 and
+    // 0.4 on 10), noise 100 dB below; the fundamental is not given. Fixed blocks of whole
+    // cycles and periodic segments then code alike, and either way the archive must say
+    // 50 Hz and keep THD: IEEE 519's definition over the amplitudes put in,
+    // √(0.8² + 0.4²)/10.
+    let s = Lab::new();
+    let src = s.path("line.parquet");
+    let (fs, n) = (10_000.0, 60_000);
+    write_wide(
+        &src,
+        &[Chan::new(
+            "ia",
+            VType::F64,
+            grid(n, fs),
+            &noisy(n, fs, 7e-5, 9),
+        )],
+        Spec::new(TimeKind::Ts(TimeUnit::Nanosecond, None)),
+        "time",
+    );
+    let arch = s.path("line.cyclarc.parquet");
+    s.encode(&src, &arch, &["--budget-rel", "0.0005"]).expect(0);
+    let meta = s.run(&["inspect", ps(&arch), "--meta"]).expect(0).json();
+    let c = &meta["channels"][0];
+    assert_eq!(c["fundamental"], "estimated", "{c}");
+    let hz = c["fundamental_hz"].as_f64().expect("fundamental_hz");
+    assert!((hz - 50.0).abs() <= 0.01, "fundamental {hz} Hz, put in 50");
+    let want = (0.8f64.powi(2) + 0.4f64.powi(2)).sqrt() / 10.0;
+    let j = s.run(&["trend", ps(&arch), "--json"]).expect(0).json();
+    let points = j["points"].as_array().expect("points");
+    assert!(!points.is_empty());
+    for p in points {
+        let got = p["thd"].as_f64().unwrap_or_else(|| panic!("no THD in {p}"));
+        // The budget (0.05 % of RMS) allows THD to move by ≈ 0.6 % (the Parseval bound of
+        // the trend test above); 2 % as there.
+        assert!((got / want - 1.0).abs() <= 0.02, "THD {got} against {want}");
+        let f = p["fundamental_hz"].as_f64().expect("fundamental_hz");
+        assert!((f - 50.0).abs() <= 0.01, "{p}");
+    }
+}
+
 fn chromium() -> Option<&'static str> {
     ["chromium", "chromium-browser"].into_iter().find(|b| {
         Command::new(b)
