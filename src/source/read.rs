@@ -7,14 +7,18 @@
 
 use std::collections::HashMap;
 use std::path::{Path, PathBuf};
+use std::sync::Arc;
 
 use arrow::array::{Array, ArrayRef, AsArray, PrimitiveArray};
 use arrow::datatypes::{
-    DataType, Float32Type, Float64Type, Int16Type, Int32Type, Int64Type, TimeUnit,
-    TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
+    DataType, FieldRef, Float32Type, Float64Type, Int16Type, Int32Type, Int64Type, Schema,
+    TimeUnit, TimestampMicrosecondType, TimestampMillisecondType, TimestampNanosecondType,
     TimestampSecondType,
 };
-use parquet::arrow::arrow_reader::ParquetRecordBatchReader;
+use parquet::arrow::arrow_reader::{
+    ArrowReaderMetadata, ArrowReaderOptions, ParquetRecordBatchReader,
+    ParquetRecordBatchReaderBuilder,
+};
 use parquet::arrow::ProjectionMask;
 use parquet::file::metadata::KeyValue;
 
@@ -333,6 +337,26 @@ impl Source {
         sorted.sort_unstable();
         sorted.dedup();
         let pos = |i: usize| sorted.iter().position(|&j| j == i).unwrap_or(0);
+        // A long layout's names are read as a dictionary (the parquet crate keeps the
+        // pages' own dictionary), so that a row is matched by its key, not by its text.
+        let builder = match channel_idx {
+            Some(ci) if fields[ci].data_type() == &DataType::Utf8 => {
+                let mut hinted: Vec<FieldRef> = fields.iter().cloned().collect();
+                hinted[ci] = Arc::new(fields[ci].as_ref().clone().with_data_type(
+                    DataType::Dictionary(Box::new(DataType::Int32), Box::new(DataType::Utf8)),
+                ));
+                let schema = Schema::new_with_metadata(hinted, arrow_schema.metadata().clone());
+                let options = ArrowReaderOptions::new().with_schema(Arc::new(schema));
+                let meta = ArrowReaderMetadata::try_new(builder.metadata().clone(), options);
+                match (meta, std::fs::File::open(path)) {
+                    (Ok(meta), Ok(f)) => {
+                        ParquetRecordBatchReaderBuilder::new_with_metadata(f, meta)
+                    }
+                    _ => builder,
+                }
+            }
+            _ => builder,
+        };
         let mask = ProjectionMask::roots(builder.parquet_schema(), sorted.iter().copied());
         let reader = builder
             .with_projection(mask)
@@ -414,14 +438,28 @@ impl Source {
         let times = self.times(batch.column(self.time_idx), first_row)?;
         match self.channel_idx {
             Some(ci) => {
-                let names =
-                    arrow::compute::cast(batch.column(ci), &DataType::Utf8).map_err(|e| {
-                        Error::NotParquet {
-                            file: self.path.clone(),
-                            reason: e.to_string(),
-                        }
-                    })?;
+                // Names as a dictionary (see `open`): each key is looked up once a batch;
+                // any other string type is compared row by row.
+                let col = batch.column(ci);
+                let (names, keys) = match col.data_type() {
+                    DataType::Dictionary(k, v)
+                        if **k == DataType::Int32 && **v == DataType::Utf8 =>
+                    {
+                        let d = col.as_dictionary::<Int32Type>();
+                        (d.values().clone(), Some(d.keys()))
+                    }
+                    _ => {
+                        let cast = arrow::compute::cast(col, &DataType::Utf8).map_err(|e| {
+                            Error::NotParquet {
+                                file: self.path.clone(),
+                                reason: e.to_string(),
+                            }
+                        })?;
+                        (cast, None)
+                    }
+                };
                 let names = names.as_string::<i32>();
+                let mut by_key: Vec<Option<usize>> = vec![None; keys.map_or(0, |_| names.len())];
                 let vt = self.long_vt;
                 let column = batch.column(self.value_idx[0].0).clone();
                 let values = ValueColumn::of(&column, vt);
@@ -433,15 +471,22 @@ impl Source {
                 let mut met_at: HashMap<&str, usize> = HashMap::new();
                 let mut last = usize::MAX;
                 for (i, &t) in times.iter().enumerate() {
-                    if names.is_null(i) {
+                    let id = match keys {
+                        Some(k) if k.is_valid(i) => Some(k.value(i) as usize),
+                        _ => None,
+                    };
+                    let row_name = id.unwrap_or(i);
+                    if (keys.is_some() && id.is_none()) || names.is_null(row_name) {
                         return Err(Error::NullChannel {
                             file: self.path.clone(),
                             column: self.schema.channel_column.clone().unwrap_or_default(),
                             row: first_row + i as u64,
                         });
                     }
-                    let name = names.value(i);
-                    let at = if met.get(last).is_some_and(|m| m.0 == name) {
+                    let name = names.value(row_name);
+                    let at = if let Some(j) = id.and_then(|k| by_key[k]) {
+                        j
+                    } else if met.get(last).is_some_and(|m| m.0 == name) {
                         last
                     } else if let Some(j) = if met.len() <= SCAN_NAMES {
                         met.iter().position(|m| m.0 == name)
@@ -478,6 +523,9 @@ impl Source {
                         met.len() - 1
                     };
                     last = at;
+                    if let Some(k) = id {
+                        by_key[k] = Some(at);
+                    }
                     let Some(s) = met[at].1 else {
                         continue;
                     };
