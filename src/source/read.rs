@@ -348,11 +348,15 @@ impl Source {
                 let schema = Schema::new_with_metadata(hinted, arrow_schema.metadata().clone());
                 let options = ArrowReaderOptions::new().with_schema(Arc::new(schema));
                 let meta = ArrowReaderMetadata::try_new(builder.metadata().clone(), options);
-                match (meta, std::fs::File::open(path)) {
-                    (Ok(meta), Ok(f)) => {
+                match meta {
+                    Ok(meta) => {
+                        let f = std::fs::File::open(path).map_err(|e| Error::Open {
+                            file: file.clone(),
+                            source: e,
+                        })?;
                         ParquetRecordBatchReaderBuilder::new_with_metadata(f, meta)
                     }
-                    _ => builder,
+                    Err(_) => builder,
                 }
             }
             _ => builder,
