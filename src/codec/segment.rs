@@ -758,7 +758,10 @@ impl Planner {
                 // Blocks that happen to hold whole cycles of a priced candidate (the
                 // cheapest such, of at least the minimum confidence) are its periodic segments: an exact number of samples per
                 // cycle, as in a test signal or a line locked to the sampling clock.
-                let len = ((none_s * fs).round() as usize).clamp(16, MAX_SEGMENT_SAMPLES);
+                let len = fixed_len(&SegmentSettings {
+                    fallback_segment_seconds: none_s,
+                    ..self.settings
+                });
                 let priced: Vec<(Estimate, f64)> = best.into_iter().chain(it).collect();
                 let fits = |e: &Estimate| {
                     if e.confidence < self.settings.min_confidence {
@@ -768,14 +771,17 @@ impl Planner {
                     let k = cycles.round();
                     (k >= 1.0 && (cycles - k).abs() <= WHOLE_CYCLES_TOLERANCE).then_some(k)
                 };
-                let at = priced.iter().position(|(e, _)| fits(e).is_some());
-                let whole = at.and_then(|i| {
-                    let (e, _) = priced[i];
-                    fits(&e).map(|k| {
+                let (at, whole) = match priced
+                    .iter()
+                    .enumerate()
+                    .find_map(|(i, (e, _))| fits(e).map(|k| (i, e, k)))
+                {
+                    Some((i, e, k)) => {
                         let hz = fs * k / len as f64;
-                        (Estimate { hz, ..e }, k as u32)
-                    })
-                });
+                        (Some(i), Some((Estimate { hz, ..*e }, k as u32)))
+                    }
+                    None => (None, None),
+                };
                 // The runner-up: the cheapest candidate the blocks do not carry.
                 let runner_up = priced
                     .iter()
